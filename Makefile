@@ -1,0 +1,30 @@
+# Specledger: `make demo` builds the demo registry and starts the UI; `make test` runs every check.
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+DEMO_DB ?= demo.db
+PORT ?= 8501
+
+.PHONY: demo test bench install clean ui
+
+$(STAMP): pyproject.toml
+	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e ".[test]"
+	touch $(STAMP)
+
+install: $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/specledger demo --db $(DEMO_DB) --force
+	SPECLEDGER_DATABASE_URL=$(DEMO_DB) $(BIN)/streamlit run ui/app.py --server.port $(PORT) --server.headless true --browser.gatherUsageStats false
+
+test: $(STAMP)
+	OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 MKL_NUM_THREADS=1 $(BIN)/python -m pytest -q -p no:cacheprovider
+
+bench: $(STAMP)
+	OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 MKL_NUM_THREADS=1 $(BIN)/python tests/benchmarks/run_all.py
+
+clean:
+	rm -rf $(VENV) *.egg-info .pytest_cache .hypothesis

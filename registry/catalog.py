@@ -1,0 +1,109 @@
+"""Reference data seeded into a new registry: fuel properties and primary test methods.
+
+Figures carry their source; "from memory" marks figures not re-checked against
+the (paywalled) standard text and "common practice" marks trade rules of thumb.
+An admin can edit all of them; they are starting values, not certified data.
+
+Precision specs (``repeatability`` r and ``reproducibility`` R) are JSON:
+``{"kind": "constant", "value": v}``, ``{"kind": "linear", "a": a, "b": b}``
+meaning a + b·X, or ``{"kind": "proportional", "b": b}`` meaning b·X.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from .errors import InputError
+
+# code, name, unit, lower, upper, decimals, source of the limits
+PROPERTIES: list[dict[str, Any]] = [
+    dict(code="RON", name="Research octane number", unit="", lower_limit=40, upper_limit=120, decimals=1),
+    dict(code="MON", name="Motor octane number", unit="", lower_limit=40, upper_limit=120, decimals=1),
+    dict(code="CN", name="Cetane number", unit="", lower_limit=20, upper_limit=80, decimals=1),
+    dict(code="DENSITY", name="Density at 15 °C", unit="g/mL", lower_limit=0.6, upper_limit=1.1, decimals=4),
+    dict(code="T10", name="Distillation 10 % recovered", unit="°C", lower_limit=0, upper_limit=400, decimals=1),
+    dict(code="T50", name="Distillation 50 % recovered", unit="°C", lower_limit=0, upper_limit=400, decimals=1),
+    dict(code="T90", name="Distillation 90 % recovered", unit="°C", lower_limit=0, upper_limit=450, decimals=1),
+    dict(code="FLASH", name="Flash point (closed cup)", unit="°C", lower_limit=-50, upper_limit=300, decimals=1),
+    dict(code="VP", name="Vapour pressure (DVPE)", unit="kPa", lower_limit=0, upper_limit=200, decimals=1),
+    dict(code="AROMATICS", name="Aromatics", unit="vol %", lower_limit=0, upper_limit=100, decimals=1),
+    dict(code="BENZENE", name="Benzene", unit="vol %", lower_limit=0, upper_limit=10, decimals=2),
+    dict(code="ETHANOL", name="Ethanol", unit="vol %", lower_limit=0, upper_limit=100, decimals=1),
+    dict(code="FAME", name="Fatty acid methyl esters", unit="vol %", lower_limit=0, upper_limit=100, decimals=1),
+    dict(code="FREEZE", name="Freezing point", unit="°C", lower_limit=-80, upper_limit=0, decimals=1),
+]
+PROPERTY_SOURCE = ("Physical limits are plausibility bounds for fuel work chosen by the project "
+                   "(common practice), not specification limits.")
+
+def _c(v: float) -> dict:
+    return {"kind": "constant", "value": v}
+
+
+# Costs are invented planning figures in USD (a knock-engine rating is of the order of
+# US$100-300, from memory); turnaround in days. Edit them to the lab's own figures.
+METHODS: list[dict[str, Any]] = [
+    dict(code="ASTM D2699", property="RON", name="Research octane, knock engine",
+         repeatability=_c(0.2), reproducibility=_c(0.7), cost=250, turnaround_days=2,
+         source="r, R for RON 90-100 from memory (ASTM D2699 precision statement)."),
+    dict(code="ASTM D2700", property="MON", name="Motor octane, knock engine",
+         repeatability=_c(0.2), reproducibility=_c(0.9), cost=250, turnaround_days=2,
+         source="r, R for MON 80-90 from memory (ASTM D2700 precision statement)."),
+    dict(code="ASTM D613", property="CN", name="Cetane number, CFR engine",
+         repeatability=_c(0.85),
+         reproducibility={"kind": "linear", "a": -2.2, "b": 0.125}, cost=350, turnaround_days=3,
+         source="R = 3.8 at CN 48 and 4.3 at CN 52, linear between (ASTM D613 / ISO 5165 text); "
+                "r about 0.8-0.9 from memory."),
+    dict(code="ASTM D4052", property="DENSITY", name="Density, oscillating U-tube",
+         repeatability=_c(0.0002), reproducibility=_c(0.0010), cost=30, turnaround_days=1,
+         source="r 0.0001-0.0005 and R 0.0005-0.002 g/mL from memory; mid values taken."),
+    *[dict(code="ASTM D86", property=p, name="Distillation at atmospheric pressure",
+           repeatability=_c(1.5), reproducibility=_c(4.0), cost=80, turnaround_days=1,
+           source="Approximate, from memory: D86 precision depends on the slope of the "
+                  "distillation curve; constant figures are a simplification.")
+      for p in ("T10", "T50", "T90")],
+    dict(code="ASTM D93", property="FLASH", name="Flash point, closed cup (procedure A)",
+         repeatability={"kind": "proportional", "b": 0.029},
+         reproducibility={"kind": "proportional", "b": 0.071}, cost=60, turnaround_days=1,
+         source="r = 0.029 X, R = 0.071 X from memory (ASTM D93 procedure A)."),
+    dict(code="ASTM D5191", property="VP", name="Vapour pressure, mini method",
+         repeatability=_c(1.0), reproducibility=_c(2.5), cost=40, turnaround_days=1,
+         source="R about 2-3 kPa from memory; r 1.0 kPa approximate, from memory."),
+    dict(code="ASTM D5769", property="AROMATICS", name="Aromatics by GC-MS",
+         repeatability=_c(0.6), reproducibility=_c(2.0), cost=180, turnaround_days=3,
+         source="Approximate, from memory."),
+    dict(code="ASTM D5769", property="BENZENE", name="Benzene by GC-MS",
+         repeatability=_c(0.03), reproducibility=_c(0.1), cost=180, turnaround_days=3,
+         source="Approximate, from memory."),
+    dict(code="ASTM D4815", property="ETHANOL", name="Oxygenates by GC",
+         repeatability=_c(0.2), reproducibility=_c(0.6), cost=120, turnaround_days=2,
+         source="Approximate, from memory."),
+    dict(code="EN 14078", property="FAME", name="FAME in middle distillates, IR",
+         repeatability=_c(0.1), reproducibility=_c(0.3), cost=60, turnaround_days=1,
+         source="Approximate, from memory."),
+    dict(code="ASTM D2386", property="FREEZE", name="Freezing point of aviation fuels",
+         repeatability=_c(1.5), reproducibility=_c(2.5), cost=90, turnaround_days=1,
+         source="r about 1.5 °C, R about 2.5 °C from memory."),
+]
+
+
+def precision_at(spec: dict[str, Any] | None, level: float) -> float | None:
+    """Evaluate a precision spec (r or R) at the level ``level``; None when not set."""
+    if not spec:
+        return None
+    kind = spec.get("kind")
+    if kind == "constant":
+        return float(spec["value"])
+    if kind == "linear":
+        return float(spec["a"]) + float(spec["b"]) * level
+    if kind == "proportional":
+        return float(spec["b"]) * abs(level)
+    raise InputError(f"unknown precision kind {kind!r}", field="repeatability/reproducibility")
+
+
+def validate_precision_spec(spec: dict[str, Any], field: str) -> dict[str, Any]:
+    """Check a precision spec before it is stored."""
+    try:
+        precision_at(spec, 1.0)
+    except (KeyError, TypeError, ValueError) as exc:
+        raise InputError(f"invalid precision spec {spec!r}: {exc}", field=field) from None
+    return spec

@@ -1,0 +1,49 @@
+"""What every service function shares: the acting user, permission checks, the audit entry.
+
+A service function takes ``(session, actor, ...)``, calls :func:`authorize`
+first, does its work with ``session.flush()`` only, and calls :func:`audit`
+last. The caller owns the transaction (``session_scope``), so a failure
+anywhere leaves the database unchanged.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+from sqlmodel import Session
+
+from ..errors import PermissionDenied
+from ..lifecycle.permissions import Action, require
+from ..lineage.audit_chain import append_event
+from ..storage.models import AuditEvent
+
+
+@dataclass(frozen=True)
+class Actor:
+    """An authenticated user acting on the registry."""
+
+    id: int
+    name: str
+    roles: frozenset[str]
+
+    def has(self, role: str) -> bool:
+        return role in self.roles
+
+
+def authorize(actor: Actor | None, action: Action) -> Actor:
+    """Refuse unless ``actor`` holds a role allowed to perform ``action``."""
+    if actor is None:
+        raise PermissionDenied(f"{action.value} needs an authenticated user (use --as NAME)")
+    require(actor.roles, action, user=actor.name)
+    return actor
+
+
+def audit(session: Session, actor: Actor | None, action: Action | str, *,
+          entity_type: str = "", entity_id: int | None = None,
+          data: dict[str, Any] | None = None) -> AuditEvent:
+    """Append the audit event for this action inside the caller's transaction."""
+    return append_event(
+        session, user_id=actor.id if actor else None, user_name=actor.name if actor else "system",
+        action=action.value if isinstance(action, Action) else str(action),
+        entity_type=entity_type, entity_id=entity_id, data=data)
