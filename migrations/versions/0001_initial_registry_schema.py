@@ -1,8 +1,10 @@
 """initial registry schema
 
 Revision ID: 0001
-Revises: 
-Create Date: 2026-12-02 02:30:40.663561
+Revises:
+Create Date: 2026-12-02
+
+Generated from registry.storage.models by ``python -m registry.storage.revise --initial``.
 """
 from typing import Sequence, Union
 
@@ -11,8 +13,7 @@ import sqlalchemy as sa
 import sqlmodel
 import registry.storage.types
 
-
-revision: str = '0001'
+revision: str = "0001"
 down_revision: Union[str, None] = None
 branch_labels: Union[str, Sequence[str], None] = None
 depends_on: Union[str, Sequence[str], None] = None
@@ -90,10 +91,8 @@ def upgrade() -> None:
     sa.PrimaryKeyConstraint('id', name=op.f('pk_audit_event')),
     sa.UniqueConstraint('hash', name=op.f('uq_audit_event_hash'))
     )
-    with op.batch_alter_table('audit_event', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_audit_event_action'), ['action'], unique=False)
-        batch_op.create_index('ix_audit_event_entity', ['entity_type', 'entity_id'], unique=False)
-
+    op.create_index(op.f('ix_audit_event_action'), 'audit_event', ['action'], unique=False)
+    op.create_index('ix_audit_event_entity', 'audit_event', ['entity_type', 'entity_id'], unique=False)
     op.create_table('calibration_set',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('name', sqlmodel.sql.sqltypes.AutoString(length=120), nullable=False),
@@ -113,10 +112,8 @@ def upgrade() -> None:
     sa.PrimaryKeyConstraint('id', name=op.f('pk_calibration_set')),
     sa.UniqueConstraint('name', name=op.f('uq_calibration_set_name'))
     )
-    with op.batch_alter_table('calibration_set', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_calibration_set_grade_id'), ['grade_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_calibration_set_property_id'), ['property_id'], unique=False)
-
+    op.create_index(op.f('ix_calibration_set_grade_id'), 'calibration_set', ['grade_id'], unique=False)
+    op.create_index(op.f('ix_calibration_set_property_id'), 'calibration_set', ['property_id'], unique=False)
     op.create_table('instrument',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('serial', sqlmodel.sql.sqltypes.AutoString(length=120), nullable=False),
@@ -132,9 +129,7 @@ def upgrade() -> None:
     sa.PrimaryKeyConstraint('id', name=op.f('pk_instrument')),
     sa.UniqueConstraint('serial', name=op.f('uq_instrument_serial'))
     )
-    with op.batch_alter_table('instrument', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_instrument_site_id'), ['site_id'], unique=False)
-
+    op.create_index(op.f('ix_instrument_site_id'), 'instrument', ['site_id'], unique=False)
     op.create_table('reference_method',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('code', sqlmodel.sql.sqltypes.AutoString(length=60), nullable=False),
@@ -151,9 +146,7 @@ def upgrade() -> None:
     sa.PrimaryKeyConstraint('id', name=op.f('pk_reference_method')),
     sa.UniqueConstraint('code', 'property_id', name=op.f('uq_reference_method_code'))
     )
-    with op.batch_alter_table('reference_method', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_reference_method_property_id'), ['property_id'], unique=False)
-
+    op.create_index(op.f('ix_reference_method_property_id'), 'reference_method', ['property_id'], unique=False)
     op.create_table('revalidation_policy',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('property_id', sa.Integer(), nullable=False),
@@ -181,11 +174,9 @@ def upgrade() -> None:
     sa.PrimaryKeyConstraint('id', name=op.f('pk_sample')),
     sa.UniqueConstraint('site_id', 'external_id', name=op.f('uq_sample_site_id'))
     )
-    with op.batch_alter_table('sample', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_sample_external_id'), ['external_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_sample_grade_id'), ['grade_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_sample_site_id'), ['site_id'], unique=False)
-
+    op.create_index(op.f('ix_sample_external_id'), 'sample', ['external_id'], unique=False)
+    op.create_index(op.f('ix_sample_grade_id'), 'sample', ['grade_id'], unique=False)
+    op.create_index(op.f('ix_sample_site_id'), 'sample', ['site_id'], unique=False)
     op.create_table('signature',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('user_id', sa.Integer(), nullable=False),
@@ -199,9 +190,7 @@ def upgrade() -> None:
     sa.ForeignKeyConstraint(['user_id'], ['app_user.id'], name=op.f('fk_signature_user_id_app_user')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_signature'))
     )
-    with op.batch_alter_table('signature', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_signature_user_id'), ['user_id'], unique=False)
-
+    op.create_index(op.f('ix_signature_user_id'), 'signature', ['user_id'], unique=False)
     op.create_table('calibration_member',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('set_id', sa.Integer(), nullable=False),
@@ -215,10 +204,8 @@ def upgrade() -> None:
     sa.PrimaryKeyConstraint('id', name=op.f('pk_calibration_member')),
     sa.UniqueConstraint('set_id', 'sample_id', name=op.f('uq_calibration_member_set_id'))
     )
-    with op.batch_alter_table('calibration_member', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_calibration_member_sample_id'), ['sample_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_calibration_member_set_id'), ['set_id'], unique=False)
-
+    op.create_index(op.f('ix_calibration_member_sample_id'), 'calibration_member', ['sample_id'], unique=False)
+    op.create_index(op.f('ix_calibration_member_set_id'), 'calibration_member', ['set_id'], unique=False)
     op.create_table('instrument_event',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('instrument_id', sa.Integer(), nullable=False),
@@ -230,9 +217,7 @@ def upgrade() -> None:
     sa.ForeignKeyConstraint(['user_id'], ['app_user.id'], name=op.f('fk_instrument_event_user_id_app_user')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_instrument_event'))
     )
-    with op.batch_alter_table('instrument_event', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_instrument_event_instrument_id'), ['instrument_id'], unique=False)
-
+    op.create_index(op.f('ix_instrument_event_instrument_id'), 'instrument_event', ['instrument_id'], unique=False)
     op.create_table('model_version',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('label', sqlmodel.sql.sqltypes.AutoString(length=120), nullable=False),
@@ -260,12 +245,10 @@ def upgrade() -> None:
     sa.PrimaryKeyConstraint('id', name=op.f('pk_model_version')),
     sa.UniqueConstraint('label', name=op.f('uq_model_version_label'))
     )
-    with op.batch_alter_table('model_version', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_model_version_calibration_set_id'), ['calibration_set_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_model_version_grade_id'), ['grade_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_model_version_property_id'), ['property_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_model_version_state'), ['state'], unique=False)
-
+    op.create_index(op.f('ix_model_version_calibration_set_id'), 'model_version', ['calibration_set_id'], unique=False)
+    op.create_index(op.f('ix_model_version_grade_id'), 'model_version', ['grade_id'], unique=False)
+    op.create_index(op.f('ix_model_version_property_id'), 'model_version', ['property_id'], unique=False)
+    op.create_index(op.f('ix_model_version_state'), 'model_version', ['state'], unique=False)
     op.create_table('spectrum',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('sample_id', sa.Integer(), nullable=False),
@@ -285,12 +268,10 @@ def upgrade() -> None:
     sa.PrimaryKeyConstraint('id', name=op.f('pk_spectrum')),
     sa.UniqueConstraint('sha256', name=op.f('uq_spectrum_sha256'))
     )
-    with op.batch_alter_table('spectrum', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_spectrum_acquired_at'), ['acquired_at'], unique=False)
-        batch_op.create_index(batch_op.f('ix_spectrum_axis_id'), ['axis_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_spectrum_instrument_id'), ['instrument_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_spectrum_sample_id'), ['sample_id'], unique=False)
-
+    op.create_index(op.f('ix_spectrum_acquired_at'), 'spectrum', ['acquired_at'], unique=False)
+    op.create_index(op.f('ix_spectrum_axis_id'), 'spectrum', ['axis_id'], unique=False)
+    op.create_index(op.f('ix_spectrum_instrument_id'), 'spectrum', ['instrument_id'], unique=False)
+    op.create_index(op.f('ix_spectrum_sample_id'), 'spectrum', ['sample_id'], unique=False)
     op.create_table('deployment',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('model_version_id', sa.Integer(), nullable=False),
@@ -306,11 +287,9 @@ def upgrade() -> None:
     sa.ForeignKeyConstraint(['signature_id'], ['signature.id'], name=op.f('fk_deployment_signature_id_signature')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_deployment'))
     )
-    with op.batch_alter_table('deployment', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_deployment_instrument_id'), ['instrument_id'], unique=False)
-        batch_op.create_index('ix_deployment_instrument_state', ['instrument_id', 'state'], unique=False)
-        batch_op.create_index(batch_op.f('ix_deployment_model_version_id'), ['model_version_id'], unique=False)
-
+    op.create_index(op.f('ix_deployment_instrument_id'), 'deployment', ['instrument_id'], unique=False)
+    op.create_index('ix_deployment_instrument_state', 'deployment', ['instrument_id', 'state'], unique=False)
+    op.create_index(op.f('ix_deployment_model_version_id'), 'deployment', ['model_version_id'], unique=False)
     op.create_table('model_state_change',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('model_version_id', sa.Integer(), nullable=False),
@@ -325,9 +304,7 @@ def upgrade() -> None:
     sa.ForeignKeyConstraint(['user_id'], ['app_user.id'], name=op.f('fk_model_state_change_user_id_app_user')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_model_state_change'))
     )
-    with op.batch_alter_table('model_state_change', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_model_state_change_model_version_id'), ['model_version_id'], unique=False)
-
+    op.create_index(op.f('ix_model_state_change_model_version_id'), 'model_state_change', ['model_version_id'], unique=False)
     op.create_table('prediction',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('spectrum_id', sa.Integer(), nullable=False),
@@ -344,11 +321,9 @@ def upgrade() -> None:
     sa.ForeignKeyConstraint(['user_id'], ['app_user.id'], name=op.f('fk_prediction_user_id_app_user')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_prediction'))
     )
-    with op.batch_alter_table('prediction', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_prediction_model_version_id'), ['model_version_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_prediction_predicted_at'), ['predicted_at'], unique=False)
-        batch_op.create_index(batch_op.f('ix_prediction_spectrum_id'), ['spectrum_id'], unique=False)
-
+    op.create_index(op.f('ix_prediction_model_version_id'), 'prediction', ['model_version_id'], unique=False)
+    op.create_index(op.f('ix_prediction_predicted_at'), 'prediction', ['predicted_at'], unique=False)
+    op.create_index(op.f('ix_prediction_spectrum_id'), 'prediction', ['spectrum_id'], unique=False)
     op.create_table('qc_result',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('instrument_id', sa.Integer(), nullable=False),
@@ -366,11 +341,9 @@ def upgrade() -> None:
     sa.ForeignKeyConstraint(['user_id'], ['app_user.id'], name=op.f('fk_qc_result_user_id_app_user')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_qc_result'))
     )
-    with op.batch_alter_table('qc_result', schema=None) as batch_op:
-        batch_op.create_index('ix_qc_result_chart', ['instrument_id', 'material', 'property_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_qc_result_instrument_id'), ['instrument_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_qc_result_model_version_id'), ['model_version_id'], unique=False)
-
+    op.create_index('ix_qc_result_chart', 'qc_result', ['instrument_id', 'material', 'property_id'], unique=False)
+    op.create_index(op.f('ix_qc_result_instrument_id'), 'qc_result', ['instrument_id'], unique=False)
+    op.create_index(op.f('ix_qc_result_model_version_id'), 'qc_result', ['model_version_id'], unique=False)
     op.create_table('revalidation_trigger',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('model_version_id', sa.Integer(), nullable=False),
@@ -384,9 +357,7 @@ def upgrade() -> None:
     sa.ForeignKeyConstraint(['model_version_id'], ['model_version.id'], name=op.f('fk_revalidation_trigger_model_version_id_model_version')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_revalidation_trigger'))
     )
-    with op.batch_alter_table('revalidation_trigger', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_revalidation_trigger_model_version_id'), ['model_version_id'], unique=False)
-
+    op.create_index(op.f('ix_revalidation_trigger_model_version_id'), 'revalidation_trigger', ['model_version_id'], unique=False)
     op.create_table('selection_run',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('created_at', registry.storage.types.UTCDateTime(timezone=True), nullable=False),
@@ -435,9 +406,7 @@ def upgrade() -> None:
     sa.ForeignKeyConstraint(['user_id'], ['app_user.id'], name=op.f('fk_validation_record_user_id_app_user')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_validation_record'))
     )
-    with op.batch_alter_table('validation_record', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_validation_record_model_version_id'), ['model_version_id'], unique=False)
-
+    op.create_index(op.f('ix_validation_record_model_version_id'), 'validation_record', ['model_version_id'], unique=False)
     op.create_table('selection_pick',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('run_id', sa.Integer(), nullable=False),
@@ -452,10 +421,8 @@ def upgrade() -> None:
     sa.PrimaryKeyConstraint('id', name=op.f('pk_selection_pick')),
     sa.UniqueConstraint('run_id', 'sample_id', name=op.f('uq_selection_pick_run_id'))
     )
-    with op.batch_alter_table('selection_pick', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_selection_pick_run_id'), ['run_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_selection_pick_sample_id'), ['sample_id'], unique=False)
-
+    op.create_index(op.f('ix_selection_pick_run_id'), 'selection_pick', ['run_id'], unique=False)
+    op.create_index(op.f('ix_selection_pick_sample_id'), 'selection_pick', ['sample_id'], unique=False)
     op.create_table('reference_result',
     sa.Column('id', sa.Integer(), nullable=False),
     sa.Column('sample_id', sa.Integer(), nullable=False),
@@ -479,152 +446,75 @@ def upgrade() -> None:
     sa.ForeignKeyConstraint(['supersedes_id'], ['reference_result.id'], name=op.f('fk_reference_result_supersedes_id_reference_result')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_reference_result'))
     )
-    with op.batch_alter_table('reference_result', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_reference_result_method_id'), ['method_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_reference_result_sample_id'), ['sample_id'], unique=False)
-        batch_op.create_index('ix_reference_result_sample_method', ['sample_id', 'method_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_reference_result_selection_pick_id'), ['selection_pick_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_reference_result_status'), ['status'], unique=False)
-
+    op.create_index(op.f('ix_reference_result_method_id'), 'reference_result', ['method_id'], unique=False)
+    op.create_index(op.f('ix_reference_result_sample_id'), 'reference_result', ['sample_id'], unique=False)
+    op.create_index('ix_reference_result_sample_method', 'reference_result', ['sample_id', 'method_id'], unique=False)
+    op.create_index(op.f('ix_reference_result_selection_pick_id'), 'reference_result', ['selection_pick_id'], unique=False)
+    op.create_index(op.f('ix_reference_result_status'), 'reference_result', ['status'], unique=False)
     # ### end Alembic commands ###
-
-    _create_append_only_guard()
-
-
-# The audit trail is append-only: the database itself refuses UPDATE and DELETE
-# on audit_event, whatever client connects (registry code or raw SQL).
-_GUARDED = "audit_event"
-
-
-def _create_append_only_guard() -> None:
-    bind = op.get_bind()
-    if bind.dialect.name == "sqlite":
-        for verb in ("UPDATE", "DELETE"):
-            op.execute(
-                f"CREATE TRIGGER trg_{_GUARDED}_no_{verb.lower()} BEFORE {verb} ON {_GUARDED} "
-                f"BEGIN SELECT RAISE(ABORT, 'audit_event is append-only: {verb} refused'); END")
-    else:
-        op.execute(
-            "CREATE OR REPLACE FUNCTION specledger_refuse_audit_change() RETURNS trigger "
-            "LANGUAGE plpgsql AS $$ BEGIN RAISE EXCEPTION 'audit_event is append-only: % refused', "
-            "TG_OP; END $$")
-        op.execute(
-            f"CREATE TRIGGER trg_{_GUARDED}_append_only BEFORE UPDATE OR DELETE ON {_GUARDED} "
-            "FOR EACH ROW EXECUTE FUNCTION specledger_refuse_audit_change()")
-        op.execute(
-            f"CREATE TRIGGER trg_{_GUARDED}_no_truncate BEFORE TRUNCATE ON {_GUARDED} "
-            "FOR EACH STATEMENT EXECUTE FUNCTION specledger_refuse_audit_change()")
-
-
-def _drop_append_only_guard() -> None:
-    bind = op.get_bind()
-    if bind.dialect.name == "sqlite":
-        for verb in ("update", "delete"):
-            op.execute(f"DROP TRIGGER IF EXISTS trg_{_GUARDED}_no_{verb}")
-    else:
-        op.execute(f"DROP TRIGGER IF EXISTS trg_{_GUARDED}_append_only ON {_GUARDED}")
-        op.execute(f"DROP TRIGGER IF EXISTS trg_{_GUARDED}_no_truncate ON {_GUARDED}")
-        op.execute("DROP FUNCTION IF EXISTS specledger_refuse_audit_change()")
 
 
 def downgrade() -> None:
-    _drop_append_only_guard()
     # ### commands auto generated by Alembic - please adjust! ###
-    with op.batch_alter_table('reference_result', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_reference_result_status'))
-        batch_op.drop_index(batch_op.f('ix_reference_result_selection_pick_id'))
-        batch_op.drop_index('ix_reference_result_sample_method')
-        batch_op.drop_index(batch_op.f('ix_reference_result_sample_id'))
-        batch_op.drop_index(batch_op.f('ix_reference_result_method_id'))
-
+    op.drop_index(op.f('ix_reference_result_status'), table_name='reference_result')
+    op.drop_index(op.f('ix_reference_result_selection_pick_id'), table_name='reference_result')
+    op.drop_index('ix_reference_result_sample_method', table_name='reference_result')
+    op.drop_index(op.f('ix_reference_result_sample_id'), table_name='reference_result')
+    op.drop_index(op.f('ix_reference_result_method_id'), table_name='reference_result')
     op.drop_table('reference_result')
-    with op.batch_alter_table('selection_pick', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_selection_pick_sample_id'))
-        batch_op.drop_index(batch_op.f('ix_selection_pick_run_id'))
-
+    op.drop_index(op.f('ix_selection_pick_sample_id'), table_name='selection_pick')
+    op.drop_index(op.f('ix_selection_pick_run_id'), table_name='selection_pick')
     op.drop_table('selection_pick')
-    with op.batch_alter_table('validation_record', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_validation_record_model_version_id'))
-
+    op.drop_index(op.f('ix_validation_record_model_version_id'), table_name='validation_record')
     op.drop_table('validation_record')
     op.drop_table('selection_run')
-    with op.batch_alter_table('revalidation_trigger', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_revalidation_trigger_model_version_id'))
-
+    op.drop_index(op.f('ix_revalidation_trigger_model_version_id'), table_name='revalidation_trigger')
     op.drop_table('revalidation_trigger')
-    with op.batch_alter_table('qc_result', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_qc_result_model_version_id'))
-        batch_op.drop_index(batch_op.f('ix_qc_result_instrument_id'))
-        batch_op.drop_index('ix_qc_result_chart')
-
+    op.drop_index(op.f('ix_qc_result_model_version_id'), table_name='qc_result')
+    op.drop_index(op.f('ix_qc_result_instrument_id'), table_name='qc_result')
+    op.drop_index('ix_qc_result_chart', table_name='qc_result')
     op.drop_table('qc_result')
-    with op.batch_alter_table('prediction', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_prediction_spectrum_id'))
-        batch_op.drop_index(batch_op.f('ix_prediction_predicted_at'))
-        batch_op.drop_index(batch_op.f('ix_prediction_model_version_id'))
-
+    op.drop_index(op.f('ix_prediction_spectrum_id'), table_name='prediction')
+    op.drop_index(op.f('ix_prediction_predicted_at'), table_name='prediction')
+    op.drop_index(op.f('ix_prediction_model_version_id'), table_name='prediction')
     op.drop_table('prediction')
-    with op.batch_alter_table('model_state_change', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_model_state_change_model_version_id'))
-
+    op.drop_index(op.f('ix_model_state_change_model_version_id'), table_name='model_state_change')
     op.drop_table('model_state_change')
-    with op.batch_alter_table('deployment', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_deployment_model_version_id'))
-        batch_op.drop_index('ix_deployment_instrument_state')
-        batch_op.drop_index(batch_op.f('ix_deployment_instrument_id'))
-
+    op.drop_index(op.f('ix_deployment_model_version_id'), table_name='deployment')
+    op.drop_index('ix_deployment_instrument_state', table_name='deployment')
+    op.drop_index(op.f('ix_deployment_instrument_id'), table_name='deployment')
     op.drop_table('deployment')
-    with op.batch_alter_table('spectrum', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_spectrum_sample_id'))
-        batch_op.drop_index(batch_op.f('ix_spectrum_instrument_id'))
-        batch_op.drop_index(batch_op.f('ix_spectrum_axis_id'))
-        batch_op.drop_index(batch_op.f('ix_spectrum_acquired_at'))
-
+    op.drop_index(op.f('ix_spectrum_sample_id'), table_name='spectrum')
+    op.drop_index(op.f('ix_spectrum_instrument_id'), table_name='spectrum')
+    op.drop_index(op.f('ix_spectrum_axis_id'), table_name='spectrum')
+    op.drop_index(op.f('ix_spectrum_acquired_at'), table_name='spectrum')
     op.drop_table('spectrum')
-    with op.batch_alter_table('model_version', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_model_version_state'))
-        batch_op.drop_index(batch_op.f('ix_model_version_property_id'))
-        batch_op.drop_index(batch_op.f('ix_model_version_grade_id'))
-        batch_op.drop_index(batch_op.f('ix_model_version_calibration_set_id'))
-
+    op.drop_index(op.f('ix_model_version_state'), table_name='model_version')
+    op.drop_index(op.f('ix_model_version_property_id'), table_name='model_version')
+    op.drop_index(op.f('ix_model_version_grade_id'), table_name='model_version')
+    op.drop_index(op.f('ix_model_version_calibration_set_id'), table_name='model_version')
     op.drop_table('model_version')
-    with op.batch_alter_table('instrument_event', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_instrument_event_instrument_id'))
-
+    op.drop_index(op.f('ix_instrument_event_instrument_id'), table_name='instrument_event')
     op.drop_table('instrument_event')
-    with op.batch_alter_table('calibration_member', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_calibration_member_set_id'))
-        batch_op.drop_index(batch_op.f('ix_calibration_member_sample_id'))
-
+    op.drop_index(op.f('ix_calibration_member_set_id'), table_name='calibration_member')
+    op.drop_index(op.f('ix_calibration_member_sample_id'), table_name='calibration_member')
     op.drop_table('calibration_member')
-    with op.batch_alter_table('signature', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_signature_user_id'))
-
+    op.drop_index(op.f('ix_signature_user_id'), table_name='signature')
     op.drop_table('signature')
-    with op.batch_alter_table('sample', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_sample_site_id'))
-        batch_op.drop_index(batch_op.f('ix_sample_grade_id'))
-        batch_op.drop_index(batch_op.f('ix_sample_external_id'))
-
+    op.drop_index(op.f('ix_sample_site_id'), table_name='sample')
+    op.drop_index(op.f('ix_sample_grade_id'), table_name='sample')
+    op.drop_index(op.f('ix_sample_external_id'), table_name='sample')
     op.drop_table('sample')
     op.drop_table('revalidation_policy')
-    with op.batch_alter_table('reference_method', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_reference_method_property_id'))
-
+    op.drop_index(op.f('ix_reference_method_property_id'), table_name='reference_method')
     op.drop_table('reference_method')
-    with op.batch_alter_table('instrument', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_instrument_site_id'))
-
+    op.drop_index(op.f('ix_instrument_site_id'), table_name='instrument')
     op.drop_table('instrument')
-    with op.batch_alter_table('calibration_set', schema=None) as batch_op:
-        batch_op.drop_index(batch_op.f('ix_calibration_set_property_id'))
-        batch_op.drop_index(batch_op.f('ix_calibration_set_grade_id'))
-
+    op.drop_index(op.f('ix_calibration_set_property_id'), table_name='calibration_set')
+    op.drop_index(op.f('ix_calibration_set_grade_id'), table_name='calibration_set')
     op.drop_table('calibration_set')
-    with op.batch_alter_table('audit_event', schema=None) as batch_op:
-        batch_op.drop_index('ix_audit_event_entity')
-        batch_op.drop_index(batch_op.f('ix_audit_event_action'))
-
+    op.drop_index('ix_audit_event_entity', table_name='audit_event')
+    op.drop_index(op.f('ix_audit_event_action'), table_name='audit_event')
     op.drop_table('audit_event')
     op.drop_table('spectral_axis')
     op.drop_table('site')

@@ -154,7 +154,7 @@ def d_optimal(T, n_select, *, already_selected=None, intercept: bool = True,
     best = None
     by_start = {}
     for label, subset in starts:
-        if _log_det(Z, fixed, subset)[0] <= 0:
+        if not _is_regular(Z, fixed, subset):
             continue  # a singular start (e.g. duplicates); the others cover it
         subset, tracked, swaps = _exchange(Z, fixed, np.array(subset, dtype=np.int64),
                                            max_iter, refresh_every)
@@ -176,6 +176,11 @@ def _log_det(Z: np.ndarray, fixed: np.ndarray, subset) -> tuple[float, float]:
     return np.linalg.slogdet(rows.T @ rows)
 
 
+def _is_regular(Z: np.ndarray, fixed: np.ndarray, subset) -> bool:
+    rows = Z[np.concatenate([fixed, np.asarray(subset, dtype=np.int64)])]
+    return int(np.linalg.matrix_rank(rows)) == Z.shape[1]
+
+
 def _ridge(Z: np.ndarray) -> float:
     """Tiny ridge δ for ranking while ZᵀZ is still singular (1e-8 of a row's ‖z‖²)."""
     return 1e-8 * float(np.einsum("ij,ij->", Z, Z)) / Z.shape[0]
@@ -191,16 +196,17 @@ def _greedy_add(Z: np.ndarray, fixed: np.ndarray, pool: np.ndarray, count: int) 
     Zf = Z[fixed]
     M_inv = np.linalg.inv(Zf.T @ Zf + _ridge(Z) * np.eye(p))
     Zp = Z[pool]
-    taken = np.zeros(pool.size, dtype=bool)
+    gain = np.einsum("ij,ij->i", Zp @ M_inv, Zp)
     order = []
     for _ in range(count):
-        gain = np.einsum("ij,jk,ik->i", Zp, M_inv, Zp)
-        gain[taken] = -np.inf
         k = int(np.argmax(gain))
-        taken[k] = True
         order.append(int(pool[k]))
         u = M_inv @ Zp[k]
-        M_inv -= np.outer(u, u) / (1.0 + Zp[k] @ u)
+        denom = 1.0 + Zp[k] @ u
+        M_inv -= np.outer(u, u) / denom
+        # d_new(x) = d(x) - (xᵀu)² / (1 + zᵀu)  (Sherman–Morrison)
+        gain -= (Zp @ u) ** 2 / denom
+        gain[k] = -np.inf
     return np.asarray(order, dtype=np.int64)
 
 
@@ -216,7 +222,7 @@ def _rank_by_gain(Z, fixed, subset):
 def _random_start(Z, fixed, free, n_select, rng):
     for _ in range(_RANDOM_START_TRIES):
         subset = rng.choice(free, size=n_select, replace=False)
-        if _log_det(Z, fixed, subset)[0] > 0:
+        if _is_regular(Z, fixed, subset):
             return subset
     return None
 

@@ -41,8 +41,19 @@ def authorize(actor: Actor | None, action: Action) -> Actor:
 
 def audit(session: Session, actor: Actor | None, action: Action | str, *,
           entity_type: str = "", entity_id: int | None = None,
-          data: dict[str, Any] | None = None) -> AuditEvent:
-    """Append the audit event for this action inside the caller's transaction."""
+          data: dict[str, Any] | None = None,
+          hashes: dict[str, list] | None = None) -> AuditEvent:
+    """Append the audit event for this action inside the caller's transaction.
+
+    ``hashes`` maps an entity kind (``spectrum``, ``reference_result``,
+    ``calibration_set``, ``model_version``, ``validation_record``, ``signature``)
+    to ``[[id, sha256], ...]``: the content hashes this event vouches for.
+    ``audit verify`` recomputes each entity's hash and compares it with the
+    latest one vouched for in the chain.
+    """
+    data = dict(data or {})
+    if hashes:
+        data["hashes"] = {k: [[int(i), h] for i, h in v] for k, v in hashes.items()}
     return append_event(
         session, user_id=actor.id if actor else None, user_name=actor.name if actor else "system",
         action=action.value if isinstance(action, Action) else str(action),

@@ -43,8 +43,8 @@ ETHANOL_SYNERGY = {"RON": 4.0, "MON": 1.0}
 #: RT-70-style interaction coefficients (form after Healy et al. 1959, from
 #: memory; values invented for the demo): sensitivity, olefin², aromatic².
 OCTANE_INTERACTIONS = {
-    "RON": (0.030, 0.00050, -0.00020),
-    "MON": (0.040, 0.00040, -0.00080),
+    "RON": (0.030, 0.00050, -0.00060),
+    "MON": (0.040, 0.00040, -0.00200),
 }
 
 #: T50 depression by ethanol in °C per unit v_e(1 − v_e) (invented).
@@ -205,8 +205,7 @@ def octane_number(composition: pd.DataFrame, kind: str = "RON") -> np.ndarray:
     rest_total = rest.sum(axis=1, keepdims=True)
     # neat ethanol has no remainder; its weight (1 − x) is then 0 anyway
     rest = np.divide(rest, rest_total, out=np.zeros_like(rest), where=rest_total > 0)
-    base_names = names
-    on_g = _rt70_base(rest, base_names, kind)
+    on_g = _rt70_base(rest, names, kind)
     on_e = COMPONENTS["ethanol"].ron if kind == "RON" else COMPONENTS["ethanol"].mon
     on_g = np.where(v_e < 1.0, on_g, 0.0)
     return (1.0 - x) * on_g + x * on_e + ETHANOL_SYNERGY[kind] * x * (1.0 - x)

@@ -79,8 +79,8 @@ GASOLINE_COMPONENTS: tuple[Component, ...] = (
               ron=94.0, mon=89.6, rvp=356.0, source=_HANDBOOK),
     Component("isopentane", "2-methylbutane", "isoparaffin", 0.620, 72.15, 27.8,
               ron=92.3, mon=90.3, rvp=138.0, source=_HANDBOOK),
-    Component("n_paraffins", "n-pentane", "n-paraffin", 0.626, 72.15, 36.1,
-              ron=61.7, mon=62.6, rvp=107.0, source=_HANDBOOK),
+    Component("n_paraffins", "n-hexane", "n-paraffin", 0.659, 86.18, 68.7,
+              ron=24.8, mon=26.0, rvp=34.0, source=_HANDBOOK),
     # isooctane is RON = MON = 100 by definition of the scale (ASTM D2699/D2700)
     Component("isooctane", "2,2,4-trimethylpentane", "isoparaffin", 0.692, 114.23, 99.2,
               ron=100.0, mon=100.0, rvp=11.8, source=_HANDBOOK),
@@ -118,7 +118,7 @@ _INVENTED = "invented typical lump values for the demo"
 
 DIESEL_COMPONENTS: tuple[Component, ...] = (
     Component("diesel_paraffins", "n- and isoparaffins C12–C20 (lump)", "n-paraffin",
-              0.785, 226.0, 285.0, cetane=75.0, source=_INVENTED),
+              0.785, 226.0, 285.0, cetane=70.0, source=_INVENTED),
     Component("diesel_naphthenes", "alkylcyclohexanes and decalins (lump)", "naphthene",
               0.850, 210.0, 260.0, cetane=42.0, source=_INVENTED),
     Component("diesel_aromatics", "alkylbenzenes and alkylnaphthalenes (lump)", "aromatic",

@@ -1,0 +1,112 @@
+"""Bulk storage of spectra: axes shared by hash, float32 blobs, fast read-back.
+
+This is the one place that turns numpy arrays into rows and back; the ORM is
+bypassed for the large payloads because building 10,000 ORM objects costs more
+than the write itself.
+"""
+
+from __future__ import annotations
+
+from typing import Iterable, Sequence
+
+import numpy as np
+from sqlalchemy import insert, select
+from sqlmodel import Session
+
+from ..errors import InputError, IntegrityError
+from ..spectra.axes import axis_sha256
+from ..spectra.record import content_sha256
+from .models import SpectralAxis, Spectrum
+
+
+def get_or_create_axis(session: Session, x: np.ndarray, unit: str = "1/CM") -> SpectralAxis:
+    """The stored axis with exactly these values (float64), created on first use."""
+    x = np.ascontiguousarray(x, dtype="<f8")
+    digest = axis_sha256(x, unit)
+    row = session.execute(select(SpectralAxis).where(SpectralAxis.sha256 == digest)).scalars().first()
+    if row is None:
+        row = SpectralAxis(unit=unit, n_points=int(x.size), first_x=float(x[0]), last_x=float(x[-1]),
+                           values=x.tobytes(), sha256=digest)
+        session.add(row)
+        session.flush()
+    return row
+
+
+def axis_values(axis: SpectralAxis) -> np.ndarray:
+    values = np.frombuffer(axis.values, dtype="<f8")
+    if axis_sha256(values, axis.unit) != axis.sha256:
+        raise IntegrityError(f"spectral axis {axis.id}: stored values do not match their hash")
+    return values.astype(np.float64)
+
+
+def existing_hashes(session: Session, digests: Sequence[str]) -> dict[str, int]:
+    """Which of ``digests`` are already stored, mapped to their spectrum id."""
+    out: dict[str, int] = {}
+    digests = list(digests)
+    for start in range(0, len(digests), 900):  # stay below SQLite's bound-parameter limit
+        part = digests[start:start + 900]
+        for sid, digest in session.execute(select(Spectrum.id, Spectrum.sha256)
+                                           .where(Spectrum.sha256.in_(part))):
+            out[digest] = sid
+    return out
+
+
+def insert_spectra(session: Session, rows: list[dict]) -> list[int]:
+    """Insert prepared spectrum rows in one statement batch; returns their ids in order."""
+    if not rows:
+        return []
+    result = session.execute(insert(Spectrum).returning(Spectrum.id, sort_by_parameter_order=True),
+                             rows)
+    return [r[0] for r in result]
+
+
+def load_matrix(session: Session, spectrum_ids: Sequence[int], *, verify: bool = False,
+                dtype=np.float64) -> tuple[np.ndarray, SpectralAxis]:
+    """Spectra as one (n, p) array in the order of ``spectrum_ids``, with their shared axis.
+
+    Refuses spectra on different axes: they must be resampled explicitly first.
+    With ``verify``, each spectrum's content hash is recomputed.
+    """
+    ids = [int(i) for i in spectrum_ids]
+    if not ids:
+        raise InputError("no spectra to load")
+    position = {sid: k for k, sid in enumerate(ids)}
+    if len(position) != len(ids):
+        raise InputError("duplicate spectrum ids requested")
+    out: np.ndarray | None = None
+    axis_id = None
+    axis_row = None
+    axis_x = None
+    seen = 0
+    for start in range(0, len(ids), 900):
+        part = ids[start:start + 900]
+        for sid, aid, blob, digest in session.execute(
+                select(Spectrum.id, Spectrum.axis_id, Spectrum.data, Spectrum.sha256)
+                .where(Spectrum.id.in_(part))):
+            if axis_id is None:
+                axis_id = aid
+                axis_row = session.get(SpectralAxis, aid)
+                out = np.empty((len(ids), axis_row.n_points), dtype=dtype)
+                if verify:
+                    axis_x = axis_values(axis_row)
+            elif aid != axis_id:
+                raise InputError(f"spectrum {sid} is on another axis than spectrum {ids[0]}: "
+                                 "resample to one axis before combining")
+            y = np.frombuffer(blob, dtype="<f4")
+            if verify and content_sha256(axis_x, y) != digest:
+                raise IntegrityError(f"spectrum {sid}: stored data do not match their hash")
+            out[position[sid]] = y
+            seen += 1
+    if seen != len(ids):
+        raise InputError(f"{len(ids) - seen} requested spectra do not exist")
+    return out, axis_row
+
+
+def iter_spectrum_rows(session: Session, ids: Iterable[int]):
+    for start_ids in _chunks(list(ids), 900):
+        yield from session.execute(select(Spectrum).where(Spectrum.id.in_(start_ids))).scalars()
+
+
+def _chunks(seq: list, n: int):
+    for i in range(0, len(seq), n):
+        yield seq[i:i + n]
