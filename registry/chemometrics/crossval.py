@@ -91,10 +91,15 @@ class CVResult:
 def haaland_thomas(press: np.ndarray, n: int, alpha: float = 0.75) -> tuple[int, np.ndarray, np.ndarray]:
     """Haaland & Thomas (1988) choice; returns (A, F ratios, upper-tail p)."""
     a_star = int(np.argmin(press))
-    f_ratio = press / press[a_star]
+    if press[a_star] > 0:
+        f_ratio = press / press[a_star]
+    else:  # an exact fit: every other count is infinitely worse
+        f_ratio = np.where(press > 0, np.inf, 1.0)
     cdf = stats.f.cdf(f_ratio, n, n)
     candidates = np.flatnonzero(cdf[: a_star + 1] < alpha)
-    return int(candidates[0]) + 1, f_ratio, 1.0 - cdf
+    # with alpha below cdf(1) ≈ 0.5 nothing qualifies; A* is then the answer
+    chosen = int(candidates[0]) + 1 if candidates.size else a_star + 1
+    return chosen, f_ratio, 1.0 - cdf
 
 
 def one_standard_error(fold_mse: np.ndarray) -> int:

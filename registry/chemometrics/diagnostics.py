@@ -128,7 +128,8 @@ class ApplicabilityDomain:
     confidence : float, default 0.95
         Level of the T², Q and F-ratio limits (0.99 is the usual stricter choice).
     n_components : int, optional
-        Components of the PLS model to use (default: all it has).
+        Components of the PLS model to use (default: all it has; never more
+        than its numerically stable ones).
     residual_test : {"jackson-mudholkar", "f-ratio"}
         Which residual limit raises the ``q_residual`` flag.
 
@@ -185,6 +186,10 @@ class ApplicabilityDomain:
         if not 1 <= A <= model.coef_.shape[0]:
             raise InputError(f"n_components must be between 1 and {model.coef_.shape[0]}",
                              field="n_components")
+        # components past the numerical rank of X have zero scores and
+        # loadings (ikpls); they add nothing to the space and would make the
+        # score covariance singular, so the checks use the stable ones only
+        A = min(A, int(getattr(model, "n_stable_components_", A)))
         if n <= A + 1:
             raise InputError(f"need more than A + 1 = {A + 1} calibration samples, got {n}",
                              field="X")

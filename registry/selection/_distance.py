@@ -56,7 +56,6 @@ class SquaredDistances:
         centre = X.mean(axis=0, dtype=np.float64)
         step = max(1, BLOCK_ELEMENTS // max(d, 1))
         self.norms = np.empty(n, dtype=np.float64)
-        raw_max = 0.0
         if X.dtype == dtype:
             # Work on the caller's array; centre and weights go into the query.
             self.data = X
@@ -64,14 +63,13 @@ class SquaredDistances:
             self.weights = weights
             for a in range(0, n, step):
                 block = X[a:a + step].astype(np.float64, copy=True)
-                raw = block * block
-                raw_max = max(raw_max, float((raw @ weights if weights is not None
-                                              else raw.sum(axis=1)).max()))
                 block -= centre
                 block *= block
                 self.norms[a:a + step] = block @ weights if weights is not None else block.sum(axis=1)
-            # Rounding of X @ v scales with the *uncentred* norms.
-            scale = max(raw_max, float(self.norms.max()))
+            # Rounding of X @ v scales with the *uncentred* norms, at most
+            # (max ||x - c||_W + ||c||_W)².
+            c_norm = float(np.sqrt(centre**2 @ weights if weights is not None else centre @ centre))
+            scale = (float(np.sqrt(self.norms.max())) + c_norm) ** 2
         else:
             # dtype conversion needs a copy anyway: store it centred and weighted.
             root_w = np.sqrt(weights) if weights is not None else None
@@ -98,17 +96,28 @@ class SquaredDistances:
             v *= self.weights
         return v.astype(self.dtype, copy=False), float(self.centre @ v)
 
+    def _cross_terms(self, i: int) -> np.ndarray:
+        """``||x_j - c||²_W + ||x_i - c||²_W - 2 (x_j - c)ᵀW(x_i - c)`` for all j, unclipped."""
+        v, s = self._query_vector(self.data[i])
+        out = (self.data @ v).astype(np.float64, copy=False)
+        out *= -2.0
+        out += self.norms
+        out += self.norms[i] + 2.0 * s
+        return out
+
     def from_row(self, i: int) -> np.ndarray:
         """Squared distances from row ``i`` to every row (float64, >= 0)."""
-        v, s = self._query_vector(self.data[i])
-        cross = (self.data @ v).astype(np.float64, copy=False)
-        if s:
-            cross -= s
-        cross *= -2.0
-        cross += self.norms
-        cross += self.norms[i]
-        np.maximum(cross, 0.0, out=cross)
-        return cross
+        d2 = self._cross_terms(i)
+        np.maximum(d2, 0.0, out=d2)
+        return d2
+
+    def lower_min(self, i: int, min_d2: np.ndarray) -> None:
+        """``min_d2 = min(min_d2, d²(i, ·))`` in place.
+
+        Skips the clip at 0: a rounding-negative value only occurs for rows
+        identical to row i, which are <= ``tol`` and so count as 0 anyway.
+        """
+        np.minimum(min_d2, self._cross_terms(i), out=min_d2)
 
     def _cross_block(self, a: int, b: int, c0: int) -> np.ndarray:
         """``(x_i - c)ᵀ W (x_j - c)`` for rows a..b-1 against rows c0..n-1."""
@@ -173,7 +182,9 @@ def column_variance(X: np.ndarray, ddof: int = 0) -> np.ndarray:
 
 def first_max(values: np.ndarray, tol: float) -> int:
     """Index of the first value within ``tol`` of the maximum (lowest-index tie rule)."""
-    return int(np.argmax(values >= values.max() - tol))
+    top = int(np.argmax(values))
+    # Only rows up to the first exact maximum can win a tie.
+    return int(np.argmax(values[: top + 1] >= values[top] - tol))
 
 
 def first_min(values: np.ndarray, tol: float) -> int:

@@ -186,7 +186,7 @@ def kennard_stone(X, n_select, *, already_selected=None, start: str = "farthest-
     elif start == "farthest-pair":
         if n >= 2:
             i, j, d2 = engine.farthest_pair()
-            picker.take_pair(i, j, d2)
+            picker.take_pair(i, j, d2, want_second=n_select >= 2)
         else:
             picker.take(0, np.nan)
     elif start == "approx-farthest":
@@ -222,21 +222,24 @@ class _Maximin:
 
     def seed_with(self, rows: np.ndarray) -> None:
         for r in rows:
-            np.minimum(self.min_d2, self.engine.from_row(int(r)), out=self.min_d2)
+            self.engine.lower_min(int(r), self.min_d2)
         self.min_d2[rows] = -np.inf
 
     def take(self, i: int, d2: float, d2_from_i: np.ndarray | None = None) -> None:
         if d2_from_i is None:
-            d2_from_i = self.engine.from_row(i)
-        np.minimum(self.min_d2, d2_from_i, out=self.min_d2)
+            self.engine.lower_min(i, self.min_d2)
+        else:
+            np.minimum(self.min_d2, d2_from_i, out=self.min_d2)
         self.min_d2[i] = -np.inf
         self.picks.append(int(i))
         self.pick_d2.append(float(d2))
         if self.progress is not None:
             self.progress(len(self.picks))
 
-    def take_pair(self, i: int, j: int, d2: float) -> None:
+    def take_pair(self, i: int, j: int, d2: float, want_second: bool = True) -> None:
         self.take(i, np.nan)
+        if not want_second:
+            return
         if d2 <= self.engine.tol:
             if not self._duplicates_ok(1):
                 return
@@ -245,12 +248,14 @@ class _Maximin:
 
     def step(self) -> bool:
         """Add the maximin candidate; False when stopped on duplicates."""
-        best = float(self.min_d2.max())
+        top = int(np.argmax(self.min_d2))
+        best = float(self.min_d2[top])
         if best == -np.inf:
             return False
         if best <= self.engine.tol and not self._duplicates_ok(len(self.picks)):
             return False
-        i = first_max(self.min_d2, self.engine.tol)
+        # Lowest-index tie rule: only rows up to the first exact maximum can tie.
+        i = int(np.argmax(self.min_d2[: top + 1] >= best - self.engine.tol))
         self.take(i, best if best > self.engine.tol else 0.0)
         return True
 

@@ -21,7 +21,7 @@ from sqlmodel import Session, select
 from ..catalog import precision_at
 from ..errors import InputError, NotFoundError
 from ..lifecycle.permissions import Action
-from ..lineage.canonical import content_hash
+from ..lineage.content_hashes import reference_result_hash
 from ..storage.models import (Property, ReferenceMethod, ReferenceResult, Sample, SelectionPick,
                               SelectionRun, Site)
 from .context import Actor, audit, authorize
@@ -43,11 +43,7 @@ class ImportRejected(InputError):
                          file=first.file, line=first.line, field=first.field)
 
 
-def reference_sha256(r: ReferenceResult) -> str:
-    """Content hash of a reference result: what it says, not where it is stored."""
-    return content_hash({"sample_id": r.sample_id, "method_id": r.method_id, "value": r.value,
-                         "lab": r.lab, "tested_at": r.tested_at, "operator": r.operator,
-                         "supersedes_id": r.supersedes_id})
+reference_sha256 = reference_result_hash
 
 
 @dataclass

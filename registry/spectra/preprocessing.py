@@ -155,8 +155,8 @@ def _normalise_step(index: int, raw: Any) -> dict[str, Any]:
                 raise _err(index, name, "degree", "degree applies only to kind 'polynomial'")
             step["kind"] = "linear"
         elif kind == "polynomial":
-            degree = _as_int(raw.get("degree", 2) if raw.get("degree") is not None else 2,
-                             index, name, "degree")
+            given = raw.get("degree")
+            degree = 2 if given is None else _as_int(given, index, name, "degree")
             if not 0 <= degree <= _MAX_BASELINE_DEGREE:
                 raise _err(index, name, "degree",
                            f"degree must be between 0 and {_MAX_BASELINE_DEGREE}, got {degree}")

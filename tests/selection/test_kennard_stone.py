@@ -125,8 +125,6 @@ def test_matches_kennard_stone_package_with_its_scaling_and_start(seed):
 def test_matches_kennard_stone_package_public_split():
     import kennard_stone as ks_package
     X = random_data(9, 100, 5)
-    idx_train, _ = ks_package.train_test_split(np.arange(100), test_size=0.3)[:2] if False else (
-        None, None)
     train_idx, test_idx = ks_package.train_test_split(X, np.arange(100), test_size=0.3)[2:]
     ours = kennard_stone(X, 70, start="farthest-from-mean", scale="auto")
     assert set(ours.tolist()) == set(train_idx.tolist())

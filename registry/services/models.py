@@ -1,0 +1,283 @@
+"""Model versions: train from a frozen calibration set, validate, predict, list, show."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from sqlalchemy import func
+from sqlmodel import Session, select
+
+from ..catalog import precision_at
+from ..chemometrics import AcceptanceCriteria, TrainedModel, train_model, validation_statistics, verdict
+from ..errors import InputError, NotFoundError, StateError
+from ..lifecycle.permissions import Action
+from ..lineage.content_hashes import artifact_hash, validation_record_hash
+from ..spectra.axes import resample
+from ..storage.models import (CalibrationSet, Grade, ModelStateChange, ModelVersion, Property,
+                              ReferenceMethod, SpectralAxis, ValidationRecord)
+from ..storage.spectra_store import axis_values, load_matrix
+from .calibration import calibration_data, get_calset, members_of
+from .context import Actor, audit, authorize
+
+# Default recipe: drop the atmospheric CO₂ band (a common-practice exclusion in mid-IR work),
+# then a first-derivative Savitzky–Golay filter to remove baseline offsets.
+DEFAULT_RECIPE: list[dict[str, Any]] = [
+    {"step": "region", "exclude": [[2400, 2250]]},
+    {"step": "savgol", "window_length": 11, "polyorder": 2, "deriv": 1},
+]
+
+
+def get_model(session: Session, label: str) -> ModelVersion:
+    mv = session.exec(select(ModelVersion).where(ModelVersion.label == label)).first()
+    if mv is None and label.isdigit():
+        mv = session.get(ModelVersion, int(label))
+    if mv is None:
+        raise NotFoundError(f"unknown model version {label!r}")
+    return mv
+
+
+def load_trained(mv: ModelVersion) -> TrainedModel:
+    """The model's arrays, after checking the artifact against its recorded hash."""
+    return TrainedModel.from_bytes(mv.artifact, mv.artifact_sha256)
+
+
+def read_recipe(path: str | Path | None) -> list[dict[str, Any]]:
+    if path is None:
+        return DEFAULT_RECIPE
+    try:
+        doc = json.loads(Path(path).read_text(encoding="utf-8"))
+    except OSError as exc:
+        raise InputError(f"cannot read recipe: {exc}", file=str(path)) from None
+    except json.JSONDecodeError as exc:
+        raise InputError(f"not valid JSON: {exc.msg}", file=str(path), line=exc.lineno) from None
+    if isinstance(doc, dict) and "steps" in doc:
+        doc = doc["steps"]
+    if not isinstance(doc, list):
+        raise InputError("a recipe is a JSON list of steps", file=str(path))
+    return doc
+
+
+def _next_label(session: Session, prop: Property, grade: Grade | None) -> str:
+    stem = f"{prop.code}-{grade.code if grade else 'ALL'}"
+    n = session.exec(select(func.count()).select_from(ModelVersion).where(
+        ModelVersion.property_id == prop.id, ModelVersion.grade_id == (grade.id if grade else None))).one()
+    label = f"{stem}-v{n + 1}"
+    while session.exec(select(ModelVersion.id).where(ModelVersion.label == label)).first():
+        n += 1
+        label = f"{stem}-v{n + 1}"
+    return label
+
+
+def record_state_change(session: Session, mv: ModelVersion, to_state: str, actor: Actor | None,
+                        reason: str = "", signature_id: int | None = None) -> ModelStateChange:
+    change = ModelStateChange(model_version_id=mv.id, from_state=mv.state, to_state=to_state,
+                              user_id=actor.id if actor else mv.author_id, reason=reason,
+                              signature_id=signature_id)
+    mv.state = to_state
+    session.add(mv)
+    session.add(change)
+    session.flush()
+    return change
+
+
+def train_model_version(session: Session, actor: Actor, calset_name: str, *,
+                        recipe: list[dict[str, Any]] | None = None, max_components: int = 20,
+                        folds: int = 10, cv_method: str = "kfold", selection: str = "haaland-thomas",
+                        n_components: int | None = None, parent: str | None = None,
+                        random_state: int | None = 0) -> ModelVersion:
+    """Train a draft model version on the calibration members of a frozen set.
+
+    Replicate spectra of one sample are kept in one cross-validation fold.
+    """
+    authorize(actor, Action.MODEL_TRAIN)
+    cs = get_calset(session, calset_name)
+    prop = session.get(Property, cs.property_id)
+    grade = session.get(Grade, cs.grade_id) if cs.grade_id else None
+    parent_mv = get_model(session, parent) if parent else None
+    if parent_mv is not None and parent_mv.property_id != prop.id:
+        raise InputError(f"parent {parent_mv.label} models another property", field="--parent")
+    X, y, groups, axis_row, _ = calibration_data(session, cs, "cal")
+    axis = axis_values(axis_row)
+    recipe = recipe if recipe is not None else DEFAULT_RECIPE
+    trained = train_model(X, y, axis, recipe, max_components=max_components, folds=folds,
+                          groups=groups, n_components=n_components, selection=selection,
+                          method=cv_method, random_state=random_state,
+                          metadata={"property": prop.code, "unit": prop.unit,
+                                    "grade": grade.code if grade else None,
+                                    "calibration_set": cs.name, "calibration_set_sha256": cs.sha256})
+    blob = trained.to_bytes()
+    cv = trained.cv
+    mv = ModelVersion(label=_next_label(session, prop, grade), property_id=prop.id,
+                      grade_id=cs.grade_id, recipe=trained.recipe, n_components=trained.n_components,
+                      cv={"rmsecv": [float(v) for v in cv.rmsecv], "press": [float(v) for v in cv.press],
+                          "selected_components": int(cv.selected_components),
+                          "selection_rule": cv.selection_rule, "method": cv.method,
+                          "n_folds": int(cv.n_folds), "f_test_p": [float(v) for v in cv.f_test_p],
+                          "n_spectra": int(X.shape[0]), "n_samples": int(len(set(groups.tolist())))},
+                      artifact=blob, artifact_sha256=artifact_hash(blob), axis_id=axis_row.id,
+                      parent_id=parent_mv.id if parent_mv else None, calibration_set_id=cs.id,
+                      state="draft", author_id=actor.id)
+    session.add(mv)
+    session.flush()
+    audit(session, actor, Action.MODEL_TRAIN, entity_type="model_version", entity_id=mv.id,
+          data={"label": mv.label, "calibration_set": cs.name, "n_components": mv.n_components,
+                "selection_rule": cv.selection_rule, "rmsecv_at_selected":
+                    float(cv.rmsecv[mv.n_components - 1]), "recipe": mv.recipe},
+          hashes={"model_version": [(mv.id, mv.artifact_sha256)]})
+    return mv
+
+
+def _reproducibility_at(session: Session, prop: Property, level: float) -> float | None:
+    method = session.exec(select(ReferenceMethod).where(ReferenceMethod.property_id == prop.id,
+                                                        ReferenceMethod.active == True)  # noqa: E712
+                          .order_by(ReferenceMethod.id)).first()
+    return precision_at(method.reproducibility, level) if method else None
+
+
+def predict_samples(trained: TrainedModel, X: np.ndarray, groups: np.ndarray):
+    """Predictions per spectrum and their mean per sample (replicates averaged)."""
+    y_spec, diag = trained.predict(X)
+    order = list(dict.fromkeys(groups.tolist()))
+    y_sample = np.array([y_spec[groups == g].mean() for g in order])
+    return y_spec, diag, order, y_sample
+
+
+def validate_model(session: Session, actor: Actor, label: str, *, calset_name: str | None = None,
+                   kind: str = "initial", criteria: AcceptanceCriteria | None = None) -> ValidationRecord:
+    """Predict a validation set and record statistics and the verdict.
+
+    Uses the validation members of the model's own set, or every member of
+    ``calset_name`` (an independent set). A pass moves a draft to validated;
+    on an approved or active model it renews the revalidation date.
+    """
+    authorize(actor, Action.MODEL_VALIDATE)
+    if kind not in ("initial", "local", "general"):
+        raise InputError("validation kind must be initial, local or general", field="--kind")
+    mv = get_model(session, label)
+    if mv.state in ("rejected", "retired", "superseded"):
+        raise StateError(f"model {mv.label} is {mv.state}; a {mv.state} version is not validated again")
+    cs = get_calset(session, calset_name) if calset_name else session.get(CalibrationSet, mv.calibration_set_id)
+    if cs.property_id != mv.property_id:
+        raise InputError(f"calibration set {cs.name} is for another property", field="--calset")
+    role = None if calset_name else "val"
+    if not members_of(session, cs, role):
+        raise InputError(f"calibration set {cs.name} has no validation members; give "
+                         "--calset with an independent set", field="--calset")
+    X, y_spec_ref, groups, axis_row, members = calibration_data(session, cs, role)
+    trained = load_trained(mv)
+    X = _on_model_axis(session, X, axis_row, trained)
+    _, _, order, y_pred = predict_samples(trained, X, groups)
+    ref = {m.sample_id: m.reference_value for m in members}
+    y_ref = np.array([ref[g] for g in order])
+    prop = session.get(Property, mv.property_id)
+    R = _reproducibility_at(session, prop, float(y_ref.mean()))
+    stats = validation_statistics(y_ref, y_pred, n_components=None, reproducibility=R)
+    stats_json = stats.to_json()
+    stats_json["n_components"] = mv.n_components
+    criteria = criteria or AcceptanceCriteria()
+    passed, reasons = verdict(_with_components(stats, mv.n_components), criteria)
+    rec = ValidationRecord(model_version_id=mv.id, calibration_set_id=cs.id, user_id=actor.id,
+                           kind=kind, n=stats.n, bias=stats.bias, sdv=stats.sdv, sep=stats.sep,
+                           rmsep=stats.rmsep, slope=stats.slope, intercept=stats.intercept,
+                           r2=stats.r2, bias_t=stats.bias_t, bias_p=stats.bias_p,
+                           sep_over_r=(stats.sep / R) if R else None, passed=passed,
+                           criteria=criteria.to_json(), statistics=stats_json, reasons=reasons,
+                           sha256="")
+    session.add(rec)
+    session.flush()
+    rec.sha256 = validation_record_hash(rec)
+    session.add(rec)
+    if passed:
+        if mv.state == "draft":
+            record_state_change(session, mv, "validated", actor, "passing validation record")
+        mv.last_validated_at = rec.created_at
+        session.add(mv)
+        if mv.state in ("approved", "active"):
+            from .lifecycle_hooks import clear_triggers_after_revalidation
+
+            clear_triggers_after_revalidation(session, mv, actor, rec)
+    session.flush()
+    audit(session, actor, Action.MODEL_VALIDATE, entity_type="model_version", entity_id=mv.id,
+          data={"label": mv.label, "calibration_set": cs.name, "passed": passed, "reasons": reasons,
+                "rmsep": stats.rmsep, "bias": stats.bias, "n": stats.n, "record_id": rec.id},
+          hashes={"validation_record": [(rec.id, rec.sha256)]})
+    return rec
+
+
+def _with_components(stats, n_components):
+    from dataclasses import replace
+
+    return replace(stats, n_components=n_components)
+
+
+def _on_model_axis(session: Session, X: np.ndarray, axis_row: SpectralAxis,
+                   trained: TrainedModel) -> np.ndarray:
+    """Spectra on the model axis: as they are, or resampled (error if not covered)."""
+    x = axis_values(axis_row)
+    if x.shape == trained.axis.shape and np.array_equal(x, trained.axis):
+        return X
+    return resample(X, x, trained.axis, kind="linear")
+
+
+def list_models(session: Session, actor: Actor, *, property_code: str | None = None,
+                state: str | None = None) -> list[dict]:
+    authorize(actor, Action.VIEW)
+    q = select(ModelVersion).order_by(ModelVersion.id)
+    if property_code:
+        prop = session.exec(select(Property).where(Property.code == property_code.upper())).first()
+        if prop is None:
+            raise NotFoundError(f"unknown property {property_code!r}")
+        q = q.where(ModelVersion.property_id == prop.id)
+    if state:
+        q = q.where(ModelVersion.state == state)
+    props = {p.id: p.code for p in session.exec(select(Property)).all()}
+    grades = {g.id: g.code for g in session.exec(select(Grade)).all()}
+    return [{"id": m.id, "label": m.label, "property": props[m.property_id],
+             "grade": grades.get(m.grade_id), "state": m.state, "components": m.n_components,
+             "rmsecv": m.cv.get("rmsecv", [None] * m.n_components)[m.n_components - 1]
+             if m.n_components else None,
+             "created_at": m.created_at, "last_validated_at": m.last_validated_at}
+            for m in session.exec(q).all()]
+
+
+def model_detail(session: Session, actor: Actor, label: str) -> dict:
+    authorize(actor, Action.VIEW)
+    from ..storage.models import Deployment, Instrument, Signature, User
+
+    mv = get_model(session, label)
+    users = {u.id: u.name for u in session.exec(select(User)).all()}
+    cs = session.get(CalibrationSet, mv.calibration_set_id)
+    prop = session.get(Property, mv.property_id)
+    validations = session.exec(select(ValidationRecord).where(
+        ValidationRecord.model_version_id == mv.id).order_by(ValidationRecord.id)).all()
+    history = session.exec(select(ModelStateChange).where(
+        ModelStateChange.model_version_id == mv.id).order_by(ModelStateChange.id)).all()
+    deployments = session.exec(select(Deployment).where(Deployment.model_version_id == mv.id)
+                               .order_by(Deployment.id)).all()
+    serials = {i.id: i.serial for i in session.exec(select(Instrument)).all()}
+    sigs = {s.id: s for s in session.exec(select(Signature).where(
+        Signature.entity_type == "model_version", Signature.entity_id == mv.id)).all()}
+    return {
+        "id": mv.id, "label": mv.label, "property": prop.code, "unit": prop.unit,
+        "state": mv.state, "author": users.get(mv.author_id), "created_at": mv.created_at,
+        "family": mv.family, "components": mv.n_components, "recipe": mv.recipe, "cv": mv.cv,
+        "artifact_sha256": mv.artifact_sha256,
+        "parent": session.get(ModelVersion, mv.parent_id).label if mv.parent_id else None,
+        "calibration_set": {"name": cs.name, "sha256": cs.sha256, "n_cal": cs.n_cal, "n_val": cs.n_val},
+        "last_validated_at": mv.last_validated_at,
+        "validations": [{"id": v.id, "kind": v.kind, "passed": v.passed, "n": v.n, "rmsep": v.rmsep,
+                         "bias": v.bias, "bias_p": v.bias_p, "r2": v.r2, "sep_over_r": v.sep_over_r,
+                         "reasons": v.reasons, "by": users.get(v.user_id), "at": v.created_at}
+                        for v in validations],
+        "history": [{"from": h.from_state, "to": h.to_state, "by": users.get(h.user_id),
+                     "at": h.occurred_at, "reason": h.reason,
+                     "signature": ({"meaning": sigs[h.signature_id].meaning,
+                                    "signer": users.get(sigs[h.signature_id].user_id)}
+                                   if h.signature_id in sigs else None)} for h in history],
+        "deployments": [{"instrument": serials[d.instrument_id], "state": d.state,
+                         "deployed_at": d.deployed_at, "ended_at": d.ended_at,
+                         "by": users.get(d.deployed_by_id)} for d in deployments],
+    }
