@@ -88,12 +88,11 @@ def due_date(last_validated_at: datetime, interval_days: int) -> datetime:
 
 
 def _as_trigger(trigger: Trigger | TriggerKind | str) -> Trigger:
-    if isinstance(trigger, Trigger):
-        return Trigger(TriggerKind(trigger.kind), trigger.detail)
+    kind, detail = (trigger.kind, trigger.detail) if isinstance(trigger, Trigger) else (trigger, "")
     try:
-        return Trigger(TriggerKind(trigger))
+        return Trigger(TriggerKind(kind), detail)
     except ValueError:
-        raise InputError(f"unknown revalidation trigger {trigger!r}; known: "
+        raise InputError(f"unknown revalidation trigger {kind!r}; known: "
                          + ", ".join(k.value for k in TriggerKind), field="triggers") from None
 
 

@@ -102,6 +102,16 @@ def _group_records(label: str, recs: list) -> Iterator[Batch]:
                     [r.source_line for r in members])
 
 
+@dataclass
+class _SampleRef:
+    """The few sample columns intake needs (cheaper than ORM objects for thousands of rows)."""
+
+    id: int
+    site_id: int
+    external_id: str
+    grade_id: int | None
+
+
 class _Context:
     """Lookups shared by all batches of one import (instruments, sites, grades, samples)."""
 
@@ -111,26 +121,39 @@ class _Context:
         self.instruments = {i.serial: i for i in session.exec(select(Instrument)).all()}
         self.sites = {s.id: s for s in session.exec(select(Site)).all()}
         self.grades = {g.code: g for g in session.exec(select(Grade)).all()}
-        self.samples: dict[tuple[int, str], Sample] = {}
+        self.samples: dict[tuple[int, str], _SampleRef] = {}
         self.created_samples = 0
 
-    def sample(self, site_id: int, external_id: str, grade: Grade | None, taken_at) -> Sample:
-        key = (site_id, external_id)
-        row = self.samples.get(key)
-        if row is None:
-            row = self.session.exec(select(Sample).where(Sample.site_id == site_id,
-                                                         Sample.external_id == external_id)).first()
-        if row is None:
-            row = Sample(site_id=site_id, external_id=external_id,
-                         grade_id=grade.id if grade else None, taken_at=taken_at)
-            self.session.add(row)
-            self.session.flush()
-            self.created_samples += 1
-        elif grade is not None and row.grade_id is None:
-            row.grade_id = grade.id
-            self.session.add(row)
-        self.samples[key] = row
-        return row
+    def resolve_samples(self, wanted: dict[tuple[int, str], Grade | None]) -> dict[tuple[int, str], int]:
+        """Sample ids for (site, external id) keys, creating missing samples in one batch."""
+        from sqlalchemy import insert, tuple_
+
+        missing = [k for k in wanted if k not in self.samples]
+        for start in range(0, len(missing), 400):
+            part = missing[start:start + 400]
+            for row in self.session.execute(select(
+                    Sample.__table__.c.id, Sample.__table__.c.site_id,
+                    Sample.__table__.c.external_id, Sample.__table__.c.grade_id).where(
+                    tuple_(Sample.site_id, Sample.external_id).in_(part))):
+                self.samples[(row.site_id, row.external_id)] = _SampleRef(
+                    row.id, row.site_id, row.external_id, row.grade_id)
+        to_create = [k for k in wanted if k not in self.samples]
+        if to_create:
+            now = utcnow()
+            self.session.execute(insert(Sample.__table__), [
+                {"site_id": site_id, "external_id": ext,
+                 "grade_id": wanted[(site_id, ext)].id if wanted[(site_id, ext)] else None,
+                 "batch": "", "source": "", "created_at": now} for site_id, ext in to_create])
+            for start in range(0, len(to_create), 400):
+                part = to_create[start:start + 400]
+                for row in self.session.execute(select(
+                        Sample.__table__.c.id, Sample.__table__.c.site_id,
+                        Sample.__table__.c.external_id, Sample.__table__.c.grade_id).where(
+                        tuple_(Sample.site_id, Sample.external_id).in_(part))):
+                    self.samples[(row.site_id, row.external_id)] = _SampleRef(
+                        row.id, row.site_id, row.external_id, row.grade_id)
+            self.created_samples += len(to_create)
+        return {k: self.samples[k].id for k in wanted}
 
 
 def import_spectra(session: Session, actor: Actor, paths: list[str | Path], *,
@@ -217,6 +240,7 @@ def _prepare(ctx: _Context, batch: Batch, errors: list, seen: set, on_duplicate:
         digests.append(h.hexdigest())
     stored = existing_hashes(session, digests)
     rows = []
+    pending: list[tuple[tuple[int, str], Grade | None]] = []
     for i, digest in enumerate(digests):
         line = batch.lines[i]
         meta = batch.metadata[i] or {}
@@ -263,16 +287,33 @@ def _prepare(ctx: _Context, batch: Batch, errors: list, seen: set, on_duplicate:
             continue
         if errors:
             continue  # keep validating, but build no rows once anything is wrong
-        sample = ctx.sample(inst.site_id, sid, grade, None)
-        if grade is not None and sample.grade_id not in (None, grade.id):
+        key = (inst.site_id, sid)
+        known = ctx.samples.get(key)
+        if known is not None and grade is not None and known.grade_id not in (None, grade.id):
             errors.append(InputError(f"sample {sid!r} is recorded as another grade", field="grade",
                                      **where))
             continue
-        rows.append({"sample_id": sample.id, "instrument_id": inst.id, "axis_id": axis_row.id,
+        pending.append((key, grade))
+        rows.append({"sample_id": key, "instrument_id": inst.id, "axis_id": axis_row.id,
                      "acquired_at": acquired_at, "data": Y[i].tobytes(), "sha256": digest,
                      "source_file": os.path.basename(batch.file)[:400],
                      "operator": str(meta.get("operator") or "")[:120],
                      "imported_by_id": actor.id, "created_at": now})
+    if errors or not rows:
+        return []
+    wanted: dict[tuple[int, str], Grade | None] = {}
+    for key, grade in pending:
+        if wanted.get(key) is None:
+            wanted[key] = grade
+    ids = ctx.resolve_samples(wanted)
+    for key, grade in pending:
+        row = ctx.samples[key]
+        if grade is not None and row.grade_id not in (None, grade.id):
+            errors.append(InputError(f"sample {key[1]!r} is recorded as another grade",
+                                     field="grade", file=batch.file))
+            return []
+    for r in rows:
+        r["sample_id"] = ids[r["sample_id"]]
     return rows
 
 

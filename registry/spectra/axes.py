@@ -63,7 +63,7 @@ def _as_axis(x, *, file=None, line=None, field="x") -> np.ndarray:
                          file=file, line=line, field=field)
     bad = np.flatnonzero(~np.isfinite(axis))
     if bad.size:
-        raise InputError(f"axis value at index {bad[0]} is {axis[bad[0]]} (not finite)",
+        raise InputError(f"axis value at index {bad[0]} is {float(axis[bad[0]])} (not finite)",
                          file=file, line=line, field=field)
     return axis
 
@@ -106,14 +106,15 @@ def normalise_ascending(x, Y, *, file: str | None = None, line: int | None = Non
     zero = np.flatnonzero(step == 0)
     if zero.size:
         i = int(zero[0]) + 1
-        raise InputError(f"axis value {axis[i]!r} at index {i} repeats the value at index {i - 1}",
+        raise InputError(f"axis value {float(axis[i])!r} at index {i} repeats the value at index {i - 1}",
                          file=file, line=line, field=field)
     ascending = step[0] > 0
     turn = np.flatnonzero((step > 0) != ascending)
     if turn.size:
         i = int(turn[0]) + 1
         raise InputError(
-            f"axis is not monotonic: value {axis[i]!r} at index {i} follows {axis[i - 1]!r}",
+            f"axis is not monotonic: value {float(axis[i])!r} at index {i} follows "
+            f"{float(axis[i - 1])!r}",
             file=file, line=line, field=field)
     if ascending:
         return axis.copy(), np.ascontiguousarray(Y)
@@ -138,7 +139,7 @@ def convert_axis_to_wavenumber(x, unit: str) -> np.ndarray:
         return axis.copy()
     bad = np.flatnonzero(axis <= 0)
     if bad.size:
-        raise InputError(f"wavelength {axis[bad[0]]!r} at index {bad[0]} is not positive",
+        raise InputError(f"wavelength {float(axis[bad[0]])!r} at index {bad[0]} is not positive",
                          field="x")
     return _TO_WAVENUMBER_NUMERATOR[canonical] / axis
 
@@ -216,8 +217,8 @@ def resample(spectra, source_axis, target_axis, kind: str = "linear") -> np.ndar
     if outside.size:
         i = int(outside[0])
         raise InputError(
-            f"target axis value {target[i]!r} at index {i} lies outside the measured range "
-            f"[{axis[0]!r}, {axis[-1]!r}]; extrapolation is not allowed", field="target_axis")
+            f"target axis value {float(target[i])!r} at index {i} lies outside the measured "
+            f"range [{float(axis[0])!r}, {float(axis[-1])!r}]; extrapolation is not allowed", field="target_axis")
     target = np.clip(target, axis[0], axis[-1])
     spline = make_interp_spline(axis, ordered, k=degree, axis=-1)
     return np.asarray(spline(target), dtype=out_dtype)
@@ -246,7 +247,7 @@ def transmittance_to_absorbance(T, percent: bool | None = None, *, file: str | N
     bad = np.flatnonzero(~np.isfinite(flat) | (flat <= 0))
     if bad.size:
         i = int(bad[0])
-        raise InputError(f"transmittance {flat[i]!r} at index {i} must be positive and finite "
+        raise InputError(f"transmittance {float(flat[i])!r} at index {i} must be positive and finite "
                          "to take a logarithm", file=file, line=line, field=field)
     if percent is None:
         percent = bool(flat.size) and float(flat.max()) > 1.5

@@ -55,9 +55,11 @@ def insert_spectra(session: Session, rows: list[dict]) -> list[int]:
     """Insert prepared spectrum rows in one statement batch; returns their ids in order."""
     if not rows:
         return []
-    result = session.execute(insert(Spectrum).returning(Spectrum.id, sort_by_parameter_order=True),
-                             rows)
-    return [r[0] for r in result]
+    # Core executemany without RETURNING (SQLite's RETURNING path runs row by row); ids are
+    # then read back by content hash, which is unique.
+    session.execute(insert(Spectrum.__table__), rows)
+    found = existing_hashes(session, [r["sha256"] for r in rows])
+    return [found[r["sha256"]] for r in rows]
 
 
 def load_matrix(session: Session, spectrum_ids: Sequence[int], *, verify: bool = False,
@@ -78,11 +80,13 @@ def load_matrix(session: Session, spectrum_ids: Sequence[int], *, verify: bool =
     axis_row = None
     axis_x = None
     seen = 0
-    for start in range(0, len(ids), 900):
-        part = ids[start:start + 900]
-        for sid, aid, blob, digest in session.execute(
-                select(Spectrum.id, Spectrum.axis_id, Spectrum.data, Spectrum.sha256)
-                .where(Spectrum.id.in_(part))):
+    table = Spectrum.__table__
+    conn = session.connection()  # Core rows: the ORM's row processing would dominate here
+    for part in _id_blocks(ids):
+        where = (table.c.id.between(part[0], part[-1]) if part[-1] - part[0] + 1 == len(part)
+                 else table.c.id.in_(part))
+        for sid, aid, blob, digest in conn.execute(
+                select(table.c.id, table.c.axis_id, table.c.data, table.c.sha256).where(where)):
             if axis_id is None:
                 axis_id = aid
                 axis_row = session.get(SpectralAxis, aid)
@@ -100,6 +104,30 @@ def load_matrix(session: Session, spectrum_ids: Sequence[int], *, verify: bool =
     if seen != len(ids):
         raise InputError(f"{len(ids) - seen} requested spectra do not exist")
     return out, axis_row
+
+
+def _id_blocks(ids: list[int]) -> list[list[int]]:
+    """Blocks of ids for queries: contiguous runs as one block (queried by range),
+    the rest in blocks of 900 (below SQLite's bound-parameter limit)."""
+    ordered = sorted(ids)
+    blocks: list[list[int]] = []
+    run = [ordered[0]]
+    for i in ordered[1:]:
+        if i == run[-1] + 1:
+            run.append(i)
+        else:
+            blocks.append(run)
+            run = [i]
+    blocks.append(run)
+    out: list[list[int]] = []
+    loose: list[int] = []
+    for b in blocks:
+        if len(b) >= 64:
+            out.append(b)
+        else:
+            loose += b
+    out += [loose[i:i + 900] for i in range(0, len(loose), 900)]
+    return out
 
 
 def iter_spectrum_rows(session: Session, ids: Iterable[int]):

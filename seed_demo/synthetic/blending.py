@@ -3,8 +3,8 @@
 Rules follow the project's domain notes §8:
 
 * octane: a volume-linear base plus sensitivity, olefin and aromatic
-  interaction corrections in the form of the Ethyl RT-70 method (Healy,
-  Maassen & Peterson, "A new approach to blending octanes", API Division of
+  interaction corrections in the form of the interaction method of Healy,
+  Maassen & Peterson ("A new approach to blending octanes", API Division of
   Refining, 1959; form from memory, coefficients invented for the demo so the
   corrections stay within a few octane numbers), then ethanol blended on a
   *molar* basis with a synergy term (Anderson & Wallington, Energy Fuels 2020)::
@@ -40,7 +40,7 @@ RVP_EXPONENT = 1.25
 #: Anderson & Wallington (Energy Fuels 2020), who found Z > 0 most often.
 ETHANOL_SYNERGY = {"RON": 4.0, "MON": 1.0}
 
-#: RT-70-style interaction coefficients (form after Healy et al. 1959, from
+#: interaction-method interaction coefficients (form after Healy et al. 1959, from
 #: memory; values invented for the demo): sensitivity, olefin², aromatic².
 OCTANE_INTERACTIONS = {
     "RON": (0.030, 0.00050, -0.00060),
@@ -160,7 +160,7 @@ def t50(composition: pd.DataFrame) -> np.ndarray:
 
 
 def _rt70_base(v: np.ndarray, names: tuple[str, ...], kind: str) -> np.ndarray:
-    """RT-70-style octane of the blend given by rows of ``v`` (rows sum to 1)."""
+    """interaction-method octane of the blend given by rows of ``v`` (rows sum to 1)."""
     ron = _column(names, "ron")
     mon = _column(names, "mon")
     on = ron if kind == "RON" else mon
@@ -191,7 +191,7 @@ def octane_number(composition: pd.DataFrame, kind: str = "RON") -> np.ndarray:
     -------
     ndarray
         ``(1 − x)·ON_g + x·ON_e + Z·x·(1 − x)``, x the molar ethanol fraction
-        (Anderson & Wallington, Energy Fuels 2020), ON_g the RT-70-style
+        (Anderson & Wallington, Energy Fuels 2020), ON_g the interaction-method
         octane of the ethanol-free remainder.
     """
     if kind not in ETHANOL_SYNERGY:

@@ -107,6 +107,8 @@ def test_unknown_trigger_is_refused():
     with pytest.raises(InputError) as info:
         due_status(DUE, DUE, ["sunspots"])
     assert info.value.field == "triggers"
+    with pytest.raises(InputError):
+        due_status(DUE, DUE, [Trigger("sunspots", "stored kind no longer known")])
 
 
 # --- coverage drift

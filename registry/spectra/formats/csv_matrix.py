@@ -26,6 +26,7 @@ import io
 import math
 import os
 import re
+import warnings
 from dataclasses import dataclass, field
 from datetime import date, datetime
 from typing import Iterable, Iterator
@@ -136,15 +137,33 @@ def _read_chunks(path, header: _Header, rows: int):
     """pandas C-engine chunks; text columns as strings, number columns inferred."""
     text_columns = {i: str for i in [header.sample_pos, *header.meta_pos]}
     try:
-        yield from pd.read_csv(
-            path, sep=header.delimiter, header=None, skiprows=1,
-            names=list(range(len(header.names))), index_col=False, dtype=text_columns,
-            na_filter=False, skip_blank_lines=False, engine="c", chunksize=rows,
-            encoding="utf-8-sig")
+        with warnings.catch_warnings():
+            # pandas only warns (and drops cells) when the first row is longer
+            # than the header; that is a format error here.
+            warnings.simplefilter("error", pd.errors.ParserWarning)
+            reader = pd.read_csv(
+                path, sep=header.delimiter, header=None, skiprows=1,
+                names=list(range(len(header.names))), index_col=False, dtype=text_columns,
+                na_filter=False, skip_blank_lines=False, engine="c", chunksize=rows,
+                encoding="utf-8-sig")
+        with reader:
+            while True:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("error", pd.errors.ParserWarning)
+                    try:
+                        frame = next(reader)
+                    except StopIteration:
+                        return
+                if len(frame):
+                    yield frame
+    except pd.errors.ParserWarning:
+        raise FormatError(f"a row near the start has more fields than the {len(header.names)} "
+                          "columns of the header", file=header.file, line=2) from None
     except pd.errors.ParserError as exc:
         found = re.search(r"line (\d+)", str(exc))
-        raise FormatError(f"wrong number of fields: {exc}".replace("Error tokenizing data. ", ""),
-                          file=header.file, line=int(found.group(1)) if found else None) from None
+        message = str(exc).replace("Error tokenizing data. ", "")
+        raise FormatError(f"wrong number of fields: {message}", file=header.file,
+                          line=int(found.group(1)) if found else None) from None
     except pd.errors.EmptyDataError:
         return
     except UnicodeDecodeError as exc:
@@ -285,7 +304,8 @@ def _iter_wide(path, header: _Header, chunk_rows: int, unit: str) -> Iterator[Cs
         else:
             lines = list(range(first_line, first_line + len(frame)))
         frame = _numeric(frame, columns, header, lines)
-        Y = frame.iloc[:, columns].to_numpy(dtype=np.float32)
+        with np.errstate(over="ignore"):  # values beyond float32 become inf, reported below
+            Y = frame.iloc[:, columns].to_numpy(dtype=np.float32)
         _non_finite(Y, columns, header, lines)
         yield CsvChunk(axis=axis, Y=Y, sample_ids=ids, metadata=_metadata_rows(frame, header),
                        first_line=lines, x_unit=unit, source_file=header.file)
@@ -354,7 +374,8 @@ class _LongBuilder:
         sid, xs, ys, meta, lines = self.current
         self.current = None
         y = np.concatenate(ys)
-        bad = np.flatnonzero(~np.isfinite(y.astype(np.float32)))
+        with np.errstate(over="ignore"):
+            bad = np.flatnonzero(~np.isfinite(y.astype(np.float32)))
         if bad.size:
             raise FormatError("value is NaN, infinite or beyond the float32 range",
                               file=self.header.file, line=lines[bad[0]],
@@ -370,7 +391,8 @@ class _LongBuilder:
         if self.axis is not None and not np.array_equal(axis, self.axis):
             yield from self.flush()
         self.axis = axis
-        self.rows.append((sid, y.astype(np.float32), meta, lines[0]))
+        with np.errstate(over="ignore"):
+            self.rows.append((sid, y.astype(np.float32), meta, lines[0]))
         if len(self.rows) >= self.chunk_rows:
             yield from self.flush()
 

@@ -396,21 +396,26 @@ class _Reader:
             raise self.error(f"##FIRSTX={firstx:g} but the first data line (line {number}) "
                              f"starts at {first_abscissa * xfactor:g}",
                              line=block.headers["FIRSTX"].line, field="FIRSTX")
-        last_number, last_abscissa, last_index = lines[-1]
-        if last_index > first_index:
-            span = last_index - first_index
+        failed = [(number, abscissa, index) for number, abscissa, index in lines[1:]
+                  if abs(abscissa * xfactor - (firstx + index * dx)) > tol]
+        if not failed:
+            return np.linspace(firstx, lastx, n)
+        _, last_abscissa, last_index = lines[-1]
+        span = last_index - first_index
+        if len(failed) == len(lines) - 1 >= 2 and span > 0:
+            # every later line is off but the lines agree with each other: the
+            # step they imply contradicts LASTX (or NPOINTS)
             step = (last_abscissa - first_abscissa) * xfactor / span
-            predicted = last_abscissa * xfactor + (n - 1 - last_index) * step
-            if abs(predicted - lastx) > tol * (1 + 2 * (n - 1 - last_index) / span):
+            if all(abs(abscissa * xfactor - (first_abscissa * xfactor + (index - first_index)
+                                              * step)) <= tol for _, abscissa, index in lines):
+                predicted = last_abscissa * xfactor + (n - 1 - last_index) * step
                 raise self.error(f"##LASTX={lastx:g} but the data lines end at about "
                                  f"{predicted:g}", line=block.headers["LASTX"].line,
                                  field="LASTX")
-        for number, abscissa, index in lines:
-            expected = firstx + index * dx
-            if abs(abscissa * xfactor - expected) > tol:
-                raise self.error(f"X-check failed: line starts at {abscissa * xfactor:g}, "
-                                 f"expected {expected:g} for point {index + 1}", line=number)
-        return np.linspace(firstx, lastx, n)
+        number, abscissa, index = failed[0]
+        raise self.error(f"X-check failed: line starts at {abscissa * xfactor:g}, expected "
+                         f"{firstx + index * dx:g} for point {index + 1} from FIRSTX, LASTX and "
+                         "NPOINTS", line=number)
 
     # ---- (XY..XY)
     def read_xypoints(self, block: _Block, table: _Ldr):
