@@ -40,8 +40,14 @@ Choices not spelled out by the duties above, and why:
   ``resolve_suspect_reference``.
 * ``trigger_raise``: lab_manager (owns deployment) and reviewer (judges
   whether a model still holds).
-* ``export_data``, ``audit_verify``, ``trace``: auditor only, as the duties say;
-  everyone else reads through ``view``.
+* ``audit_verify``: auditor only, as the duties say.
+* ``export_data``: every role that works with the data (analyst, lab_manager,
+  reviewer, auditor); exporting spectra is part of bench work too.
+* ``trace``: auditor, reviewer and lab_manager (reviewers check evidence,
+  lab managers answer customer queries).
+* ``calset_create`` and ``model_validate`` also for analysts: the analyst who
+  builds a model may freeze its set and record its validation; approval stays
+  with a reviewer who neither authored the version nor built its set.
 
 Separation of duties on a single version (author may not approve) is not a
 role question and lives in :mod:`registry.lifecycle.states`.
@@ -119,7 +125,7 @@ PERMISSIONS: dict[Action, frozenset[Role]] = {
     Action.METHOD_EDIT: _roles(_ADMIN),
     Action.POLICY_EDIT: _roles(_ADMIN),
     Action.SELECTION_RUN: _roles(_MGR),
-    Action.CALSET_CREATE: _roles(_MGR),
+    Action.CALSET_CREATE: _roles(_MGR, _ANALYST),
     Action.MODEL_ACTIVATE: _roles(_MGR),
     Action.MODEL_RETIRE: _roles(_MGR),
     Action.TRIGGER_RAISE: _roles(_MGR, _REVIEWER),
@@ -130,14 +136,14 @@ PERMISSIONS: dict[Action, frozenset[Role]] = {
     Action.MODEL_SUBMIT: _roles(_ANALYST, _MGR),
     Action.PREDICT: _roles(_ANALYST),
     Action.QC_ADD: _roles(_ANALYST),
-    Action.MODEL_VALIDATE: _roles(_REVIEWER),
+    Action.MODEL_VALIDATE: _roles(_REVIEWER, _ANALYST),
     Action.MODEL_APPROVE: _roles(_REVIEWER),
     Action.MODEL_REJECT: _roles(_REVIEWER),
     Action.RESOLVE_SUSPECT_REFERENCE: _roles(_REVIEWER),
     Action.QC_CLEAR_SIGNAL: _roles(_REVIEWER),
-    Action.EXPORT_DATA: _roles(_AUDITOR),
+    Action.EXPORT_DATA: _roles(_AUDITOR, _ANALYST, _MGR, _REVIEWER),
     Action.AUDIT_VERIFY: _roles(_AUDITOR),
-    Action.TRACE: _roles(_AUDITOR),
+    Action.TRACE: _roles(_AUDITOR, _MGR, _REVIEWER),
     Action.VIEW: _ALL,
 }
 

@@ -70,6 +70,10 @@ TRANSITIONS: dict[tuple[ModelState, LifecycleAction], ModelState] = {
     (S.APPROVED, A.ACTIVATE): S.ACTIVE,
     # deploying an active version on one more instrument keeps it active
     (S.ACTIVE, A.ACTIVATE): S.ACTIVE,
+    # periodic revalidation of a version in service keeps its state (a new record;
+    # the record signed at approval is never changed)
+    (S.APPROVED, A.VALIDATE): S.APPROVED,
+    (S.ACTIVE, A.VALIDATE): S.ACTIVE,
     (S.ACTIVE, A.RETIRE): S.RETIRED,
     # an approved version that will never be deployed can be retired directly
     (S.APPROVED, A.RETIRE): S.RETIRED,

@@ -34,7 +34,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 from registry.spectra.formats.csv_matrix import iter_csv_spectra, write_csv_spectra  # noqa: E402
 from registry.spectra.record import SpectrumRecord  # noqa: E402
 
-REPEATS = 3
+REPEATS = 5
 
 
 def make_file(path: Path, n_spectra: int, n_points: int) -> None:

@@ -14,6 +14,8 @@ in_review --reject--> rejected
 validated --reject--> rejected
 approved --activate--> active
 active --activate--> active
+approved --validate--> approved
+active --validate--> active
 active --retire--> retired
 approved --retire--> retired
 active --supersede--> superseded
@@ -40,14 +42,21 @@ BRIEF_ROLE_DUTIES = {
              "policy_edit view"
              " grade_add instrument_event",                      # decided
     "lab_manager": "selection_run calset_create model_activate model_retire view"
-                   " model_submit instrument_event trigger_raise",  # decided
+                   " model_submit instrument_event trigger_raise"  # decided
+                   " export_data trace",                           # decided
     "analyst": "import_spectra import_references model_train predict qc_add view"
-               " model_submit correct_reference",               # decided
+               " model_submit correct_reference"               # decided
+               " calset_create model_validate export_data",     # decided
     "reviewer": "model_validate model_approve model_reject resolve_suspect_reference "
                 "qc_clear_signal view"
-                " trigger_raise",                                 # decided
+                " trigger_raise export_data trace",               # decided
     "auditor": "view audit_verify export_data trace",
 }
+
+# Decided: periodic revalidation of a version in service keeps its state, and
+# analysts may freeze calibration sets and validate (the brief's chemometrics
+# issue has an analyst do both; approval stays with a reviewer who neither
+# authored the version nor built its calibration set).
 
 # Project brief: the list of user actions the registry has.
 BRIEF_ACTIONS = (

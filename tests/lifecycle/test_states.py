@@ -73,8 +73,9 @@ def test_terminal_states_are_those_with_no_way_out():
 
 def test_allowed_actions_hide_the_system_move_from_users():
     # project brief: supersede is a system action
-    assert allowed_actions("active") == ["activate", "retire"]
-    assert allowed_actions("active", include_system=True) == ["activate", "retire", "supersede"]
+    assert allowed_actions("active") == ["validate", "activate", "retire"]
+    assert allowed_actions("active", include_system=True) == ["validate", "activate", "retire",
+                                                              "supersede"]
 
 
 @pytest.mark.parametrize("state,action", [("drafted", "validate"), ("draft", "publish")])
