@@ -66,6 +66,13 @@ def _clean(obj: Any) -> Any:
     return obj
 
 
+def _merge_ok(integrity: dict, key: str, oks: list[bool]) -> None:
+    """AND ``oks`` into ``integrity[key]`` (None while nothing of the kind was checked)."""
+    if oks:
+        prev = integrity.get(key)
+        integrity[key] = all(oks) and prev is not False
+
+
 def _chunks(ids: Iterable[int]) -> Iterable[list[int]]:
     ids = sorted(set(ids))
     for i in range(0, len(ids), _CHUNK):
@@ -192,7 +199,7 @@ def _model_doc(session: Session, lk: _Lookups, mv: ModelVersion, cs: Calibration
         ValidationRecord.model_version_id == mv.id).order_by(ValidationRecord.id)).scalars().all()
     val_sets = {v.calibration_set_id for v in validations}
     set_names = dict(session.execute(select(CalibrationSet.id, CalibrationSet.name).where(
-        CalibrationSet.id.in_(sorted(val_sets))))) if val_sets else {}
+        CalibrationSet.id.in_(sorted(val_sets)))).all()) if val_sets else {}
     events = session.execute(select(AuditEvent.id, AuditEvent.occurred_at, AuditEvent.user_name,
                                     AuditEvent.action, AuditEvent.hash).where(
         AuditEvent.entity_type == "model_version", AuditEvent.entity_id == mv.id,
@@ -333,7 +340,7 @@ def _calset_doc(session: Session, lk: _Lookups, cs: CalibrationSet, integrity: d
                         for sp in spectra.get(m.sample_id, [])],
             "reference_results": rdocs,
             "selection": selection.get(m.sample_id)})
-    integrity["reference_results_hash_ok"] = all(result_ok) if result_ok else None
+    _merge_ok(integrity, "reference_results_hash_ok", result_ok)
     prop = lk.properties.get(cs.property_id)
     return {"id": cs.id, "name": cs.name, "sha256": cs.sha256, "hash_ok": cs_ok,
             "property": prop.code if prop else None, "grade": lk.grades.get(cs.grade_id),
@@ -410,7 +417,7 @@ def _prediction_parts(session: Session, lk: _Lookups, pred: Prediction, doc: dic
     doc["calibration_set"] = _calset_doc(session, lk, cs, integrity) if cs else None
 
 
-def _sample_record(session: Session, lk: _Lookups, sample: Sample, prop) -> dict:
+def _sample_record(session: Session, lk: _Lookups, sample: Sample, prop, integrity: dict) -> dict:
     """The sample's spectra, its results for the property, and the sets and models using it."""
     spectra = session.execute(select(*_SPECTRUM_COLS).where(Spectrum.sample_id == sample.id)
                               .order_by(Spectrum.acquired_at, Spectrum.id)).all()
@@ -424,6 +431,9 @@ def _sample_record(session: Session, lk: _Lookups, sample: Sample, prop) -> dict
         CalibrationSet, CalibrationSet.id == CalibrationMember.set_id).where(
         CalibrationMember.sample_id == sample.id, CalibrationSet.property_id == prop.id)
         .order_by(CalibrationSet.id)).all()
+    result_docs = [_result_doc(lk, r, superseded_by) for r in results]
+    _merge_ok(integrity, "reference_results_hash_ok", [d["hash_ok"] for d in result_docs])
+    integrity["altered"] += [f"reference_result {d['id']}" for d in result_docs if not d["hash_ok"]]
     set_ids = [cs.id for _, cs in memberships]
     models: dict[int, list] = {}
     if set_ids:
@@ -435,7 +445,7 @@ def _sample_record(session: Session, lk: _Lookups, sample: Sample, prop) -> dict
     return {
         "sample": _sample_doc(lk, sample), "property": prop.code,
         "spectra": [_spectrum_doc(lk, sp) for sp in spectra],
-        "reference_results": [_result_doc(lk, r, superseded_by) for r in results],
+        "reference_results": result_docs,
         "calibration_sets": [{"id": cs.id, "name": cs.name, "sha256": cs.sha256, "role": m.role,
                               "reference_value": m.reference_value,
                               "reference_result_ids": list(m.reference_result_ids or []),
@@ -529,7 +539,7 @@ def build_trace(session: Session, *, prediction_id: int | None = None, sample: s
             Prediction.predicted_at.desc(), Prediction.id.desc()).limit(1)).scalar()
         doc["root"] = {"kind": "sample", "sample": srow.external_id, "property": prop.code,
                        "prediction_id": pid}
-        doc["sample_record"] = _sample_record(session, lk, srow, prop)
+        doc["sample_record"] = _sample_record(session, lk, srow, prop, doc["integrity"])
         if pid is not None:
             _prediction_parts(session, lk, session.get(Prediction, pid), doc, now)
         else:
@@ -542,4 +552,5 @@ def build_trace(session: Session, *, prediction_id: int | None = None, sample: s
         cs = session.get(CalibrationSet, mv.calibration_set_id)
         doc["model"] = _model_doc(session, lk, mv, cs, None, None, now, doc["integrity"])
         doc["calibration_set"] = _calset_doc(session, lk, cs, doc["integrity"]) if cs else None
+    doc["integrity"]["altered"] = list(dict.fromkeys(doc["integrity"]["altered"]))
     return _clean(doc)

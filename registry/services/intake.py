@@ -124,19 +124,23 @@ class _Context:
         self.samples: dict[tuple[int, str], _SampleRef] = {}
         self.created_samples = 0
 
-    def resolve_samples(self, wanted: dict[tuple[int, str], Grade | None]) -> dict[tuple[int, str], int]:
-        """Sample ids for (site, external id) keys, creating missing samples in one batch."""
-        from sqlalchemy import insert, tuple_
+    def _load(self, keys: list[tuple[int, str]]) -> None:
+        """Cache the stored samples among ``keys`` (batched lookups)."""
+        from sqlalchemy import tuple_
 
-        missing = [k for k in wanted if k not in self.samples]
-        for start in range(0, len(missing), 400):
-            part = missing[start:start + 400]
-            for row in self.session.execute(select(
-                    Sample.__table__.c.id, Sample.__table__.c.site_id,
-                    Sample.__table__.c.external_id, Sample.__table__.c.grade_id).where(
-                    tuple_(Sample.site_id, Sample.external_id).in_(part))):
+        t = Sample.__table__
+        for start in range(0, len(keys), 400):
+            part = keys[start:start + 400]
+            for row in self.session.execute(select(t.c.id, t.c.site_id, t.c.external_id, t.c.grade_id)
+                                            .where(tuple_(t.c.site_id, t.c.external_id).in_(part))):
                 self.samples[(row.site_id, row.external_id)] = _SampleRef(
                     row.id, row.site_id, row.external_id, row.grade_id)
+
+    def resolve_samples(self, wanted: dict[tuple[int, str], Grade | None]) -> dict[tuple[int, str], int]:
+        """Sample ids for (site, external id) keys, creating missing samples in one batch."""
+        from sqlalchemy import insert
+
+        self._load([k for k in wanted if k not in self.samples])
         to_create = [k for k in wanted if k not in self.samples]
         if to_create:
             now = utcnow()
@@ -144,14 +148,7 @@ class _Context:
                 {"site_id": site_id, "external_id": ext,
                  "grade_id": wanted[(site_id, ext)].id if wanted[(site_id, ext)] else None,
                  "batch": "", "source": "", "created_at": now} for site_id, ext in to_create])
-            for start in range(0, len(to_create), 400):
-                part = to_create[start:start + 400]
-                for row in self.session.execute(select(
-                        Sample.__table__.c.id, Sample.__table__.c.site_id,
-                        Sample.__table__.c.external_id, Sample.__table__.c.grade_id).where(
-                        tuple_(Sample.site_id, Sample.external_id).in_(part))):
-                    self.samples[(row.site_id, row.external_id)] = _SampleRef(
-                        row.id, row.site_id, row.external_id, row.grade_id)
+            self._load(to_create)
             self.created_samples += len(to_create)
         return {k: self.samples[k].id for k in wanted}
 

@@ -40,6 +40,11 @@ from registry.spectra.record import SpectrumRecord
 
 _NUMBER = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?\Z")
 _LONG_FORM_ROWS = 65536  # rows per pandas chunk in long form
+# pandas builds one DataFrame (one array per column) per chunk it parses; with
+# ~2,000 columns that fixed cost made 1,000-row chunks ~1.5x slower than one
+# whole-file read (tests/benchmarks/bench_csv_parse.py).  Parse in blocks of
+# about this many bytes of float64 cells and cut them into chunk_rows chunks.
+_PARSE_BYTES = 64 * 2**20
 
 
 @dataclass
@@ -280,35 +285,41 @@ def _iter_wide(path, header: _Header, chunk_rows: int, unit: str) -> Iterator[Cs
         axis, order = normalise_ascending(raw_axis, np.arange(raw_axis.size), file=header.file,
                                           line=1)
     except InputError as exc:
-        index = int(re.search(r"index (\d+)", exc.message).group(1))
-        raise FormatError(exc.message, file=header.file, line=1,
-                          field=header.names[header.axis_pos[index]]) from None
+        found = re.search(r"index (\d+)", exc.message)
+        field = header.names[header.axis_pos[int(found.group(1))]] if found else None
+        raise FormatError(exc.message, file=header.file, line=1, field=field) from None
     columns = [header.axis_pos[i] for i in order]  # file columns in ascending-axis order
+    # text cells cost a Python string each (~64 bytes), numbers 8 bytes
+    row_bytes = 8 * len(columns) + 64 * (1 + len(header.meta_pos))
+    read_rows = max(chunk_rows, _PARSE_BYTES // row_bytes)
     next_line = 2
-    for frame in _read_chunks(path, header, chunk_rows):
+    for frame in _read_chunks(path, header, read_rows):
         first_line = next_line
         next_line += len(frame)
         ids = _text_column(frame, header.sample_pos)
-        blank = [i for i, sid in enumerate(ids) if not sid]
-        if blank:
+        lines = list(range(first_line, first_line + len(frame)))
+        if not all(ids):
             keep = [i for i in range(len(frame)) if ids[i] or not _is_blank_row(frame, i)]
-            for i in blank:
-                if i in keep:
-                    raise FormatError("empty sample id", file=header.file, line=first_line + i,
+            for i in keep:
+                if not ids[i]:
+                    raise FormatError("empty sample id", file=header.file, line=lines[i],
                                       field=header.names[header.sample_pos])
-            lines = [first_line + i for i in keep]
             frame = frame.iloc[keep].reset_index(drop=True)
             ids = [ids[i] for i in keep]
+            lines = [lines[i] for i in keep]
             if not keep:
                 continue
-        else:
-            lines = list(range(first_line, first_line + len(frame)))
         frame = _numeric(frame, columns, header, lines)
         with np.errstate(over="ignore"):  # values beyond float32 become inf, reported below
             Y = frame.iloc[:, columns].to_numpy(dtype=np.float32)
         _non_finite(Y, columns, header, lines)
-        yield CsvChunk(axis=axis, Y=Y, sample_ids=ids, metadata=_metadata_rows(frame, header),
-                       first_line=lines, x_unit=unit, source_file=header.file)
+        metadata = _metadata_rows(frame, header)
+        del frame
+        for start in range(0, len(ids), chunk_rows):
+            stop = start + chunk_rows
+            yield CsvChunk(axis=axis, Y=Y[start:stop], sample_ids=ids[start:stop],
+                           metadata=metadata[start:stop], first_line=lines[start:stop],
+                           x_unit=unit, source_file=header.file)
 
 
 def _is_blank_row(frame: pd.DataFrame, i: int) -> bool:
