@@ -34,7 +34,6 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from sqlalchemy import distinct
 from sqlmodel import Session, select
 
 from ..errors import InputError, IntegrityError, NotFoundError, StateError
@@ -252,8 +251,8 @@ def _calibration_instruments(session: Session, mv: ModelVersion) -> list[Instrum
     inst_ids: set[int] = set()
     for start in range(0, len(spectrum_ids), 900):
         part = spectrum_ids[start:start + 900]
-        inst_ids.update(session.exec(select(distinct(Spectrum.instrument_id)).where(
-            Spectrum.id.in_(part))).all())
+        inst_ids.update(session.exec(select(Spectrum.instrument_id).where(
+            Spectrum.id.in_(part)).distinct()).all())
     return [session.get(Instrument, i) for i in sorted(inst_ids)]
 
 
@@ -279,9 +278,9 @@ def check_compatibility(session: Session, mv: ModelVersion, inst: Instrument) ->
                          "measured at", field=where)
     grade_check = "not applicable (model for all grades)"
     if mv.grade_id is not None:
-        measured = set(session.exec(select(distinct(Sample.grade_id)).join(
+        measured = set(session.exec(select(Sample.grade_id).join(
             Spectrum, Spectrum.sample_id == Sample.id).where(
-            Spectrum.instrument_id == inst.id, Sample.grade_id != None)).all())  # noqa: E711
+            Spectrum.instrument_id == inst.id, Sample.grade_id != None).distinct()).all())  # noqa: E711
         grade = session.get(Grade, mv.grade_id)
         if not measured:
             grade_check = f"unchecked: no graded spectra on {inst.serial} yet"

@@ -308,7 +308,7 @@ def _flag_words(prop_code: str, record: dict) -> str:
 
 def _nearest_labels(S_cal: np.ndarray, S_pool: np.ndarray, picks: np.ndarray,
                     cal_labels: list[str], pool_labels: list[str]) -> list[tuple[float, str]]:
-    """For each pick: distance to and label of the nearest calibration sample or earlier pick."""
+    """For each pick: distance to, and name of, the nearest calibration sample or earlier pick."""
     out = []
     for r, i in enumerate(picks):
         before = np.vstack([S_cal, S_pool[picks[:r]]])
@@ -317,27 +317,28 @@ def _nearest_labels(S_cal: np.ndarray, S_pool: np.ndarray, picks: np.ndarray,
             continue
         d = np.sqrt(((before - S_pool[i]) ** 2).sum(axis=1))
         j = int(np.argmin(d))
-        label = cal_labels[j] if j < len(cal_labels) else \
-            f"{pool_labels[picks[j - len(cal_labels)]]} (pick {j - len(cal_labels) + 1})"
+        label = (f"calibration sample {cal_labels[j]}" if j < len(cal_labels) else
+                 f"earlier pick {pool_labels[picks[j - len(cal_labels)]]} "
+                 f"(rank {j - len(cal_labels) + 1})")
         out.append((float(d[j]), label))
     return out
 
 
 def _reason(method: str, use: str, rank: int, dist: float, nearest: str, lev: float, gain: float,
-            metric: str, flags_text: str, n_cal: int) -> str:
+            metric: str, flags_text: str) -> str:
     what = "Mahalanobis distance" if metric == "mahalanobis" else "distance"
-    near = f"{what} {dist:.3g} to the nearest {'calibration sample or earlier pick' if n_cal else 'earlier pick'} {nearest}" \
-        if nearest else "first pick, nothing calibrated yet"
+    near = f"{what} {dist:.3g} to the nearest {nearest}" if nearest else ""
     if method == "kennard-stone":
-        text = (f"largest remaining gap in the calibration space: {near}" if n_cal or rank > 2
-                else f"one of the two most different samples of the pool ({near})")
+        text = (f"largest remaining gap in the calibration space: {near}" if near and rank > 2
+                or "calibration sample" in nearest else
+                "one of the two most different samples of the pool" + (f" ({near})" if near else ""))
     elif method == "d-optimal":
-        if math.isfinite(gain):
-            text = f"raises ln det(Z'Z) by {gain:.3g} (leverage {lev:.3g}); {near}"
-        else:
-            text = f"needed with the other picks to make the design estimable; {near}"
+        text = (f"raises ln det(Z'Z) by {gain:.3g} (leverage {lev:.3g})" if math.isfinite(gain)
+                else "needed with the other picks to make the design estimable")
+        text += f"; {near}" if near else ""
     else:
-        text = f"{use} pick of a new Duplex calibration/validation split; {near}"
+        text = (f"for {use}: Duplex maximin pick, {near}" if near else
+                f"for {use}: one of the two most different samples left for the {use} set")
     return f"{text}; {flags_text}" if flags_text else text
 
 
@@ -551,7 +552,7 @@ def run_selection(session: Session, actor: Actor, *, property_codes: list[str], 
             "tests": tests_text, "cost": cost,
             "cumulative_cost": spent,
             "reason": _reason(method, use[r], r + 1, dist, near, lev, gain, metric,
-                              "; ".join(flag_texts), n_cal),
+                              "; ".join(flag_texts)),
             "distance": dist, "nearest_sample": near, "leverage": lev, "log_det_gain": gain,
             "flags": flags,
             "diagnostics": {c: {key: diag_records[c][uni_row][key] for key in
@@ -612,7 +613,7 @@ def _duplex_nearest(S_pool, picks, use, labels) -> list[tuple[float, str]]:
             continue
         d = np.sqrt(((S_pool[same] - S_pool[i]) ** 2).sum(axis=1))
         j = int(np.argmin(d))
-        out.append((float(d[j]), f"{labels[same[j]]} ({use[r]})"))
+        out.append((float(d[j]), f"earlier {use[r]} pick {labels[same[j]]}"))
     return out
 
 

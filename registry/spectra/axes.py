@@ -106,8 +106,8 @@ def normalise_ascending(x, Y, *, file: str | None = None, line: int | None = Non
     zero = np.flatnonzero(step == 0)
     if zero.size:
         i = int(zero[0]) + 1
-        raise InputError(f"axis value {float(axis[i])!r} at index {i} repeats the value at index {i - 1}",
-                         file=file, line=line, field=field)
+        raise InputError(f"axis value {float(axis[i])!r} at index {i} repeats the value at "
+                         f"index {i - 1}", file=file, line=line, field=field)
     ascending = step[0] > 0
     turn = np.flatnonzero((step > 0) != ascending)
     if turn.size:
@@ -218,7 +218,8 @@ def resample(spectra, source_axis, target_axis, kind: str = "linear") -> np.ndar
         i = int(outside[0])
         raise InputError(
             f"target axis value {float(target[i])!r} at index {i} lies outside the measured "
-            f"range [{float(axis[0])!r}, {float(axis[-1])!r}]; extrapolation is not allowed", field="target_axis")
+            f"range [{float(axis[0])!r}, {float(axis[-1])!r}]; extrapolation is not allowed",
+            field="target_axis")
     target = np.clip(target, axis[0], axis[-1])
     spline = make_interp_spline(axis, ordered, k=degree, axis=-1)
     return np.asarray(spline(target), dtype=out_dtype)
@@ -247,8 +248,8 @@ def transmittance_to_absorbance(T, percent: bool | None = None, *, file: str | N
     bad = np.flatnonzero(~np.isfinite(flat) | (flat <= 0))
     if bad.size:
         i = int(bad[0])
-        raise InputError(f"transmittance {float(flat[i])!r} at index {i} must be positive and finite "
-                         "to take a logarithm", file=file, line=line, field=field)
+        raise InputError(f"transmittance {float(flat[i])!r} at index {i} must be positive and "
+                         "finite to take a logarithm", file=file, line=line, field=field)
     if percent is None:
         percent = bool(flat.size) and float(flat.max()) > 1.5
     if percent:

@@ -247,3 +247,14 @@ def test_writer_refuses_uneven_axis_for_xydata():
     assert "XYPOINTS" in str(err.value)
     [back] = read_jcamp(None, text=write_jcamp(rec, "XYPOINTS"))
     assert back.x.tolist() == [1.0, 2.0, 4.0]
+
+
+def test_xfactor_yfactor_and_descending_axis_by_hand():
+    # spec: actual x = X·XFACTOR, actual y = Y·YFACTOR; each line's X is the
+    # abscissa of its first ordinate.  Decoded by hand: x = 4000…3996, y = 0.1…0.5
+    text = ("##TITLE=hand\n##JCAMP-DX=4.24\n##XUNITS=1/CM\n##YUNITS=ABSORBANCE\n"
+            "##XFACTOR=0.5\n##YFACTOR=0.001\n##FIRSTX=4000\n##LASTX=3996\n##DELTAX=-1\n"
+            "##NPOINTS=5\n##XYDATA=(X++(Y..Y))\n8000 100 200 300\n7994 400 500\n##END=\n")
+    [rec] = read_jcamp(None, text=text)
+    assert rec.x.tolist() == [3996.0, 3997.0, 3998.0, 3999.0, 4000.0]
+    np.testing.assert_allclose(rec.y, [0.5, 0.4, 0.3, 0.2, 0.1], rtol=1e-7)

@@ -22,12 +22,11 @@ assume no quoted field spans several lines.
 from __future__ import annotations
 
 import csv
-import io
 import math
 import os
 import re
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from datetime import date, datetime
 from typing import Iterable, Iterator
 
@@ -225,10 +224,11 @@ def _text_column(frame: pd.DataFrame, pos: int) -> list[str]:
     return [str(v).strip() for v in frame[pos].tolist()]
 
 
-def _metadata_rows(frame: pd.DataFrame, header: _Header, rows: Iterable[int] | None = None):
+def _metadata_rows(frame: pd.DataFrame, header: _Header) -> list[dict]:
+    """Non-empty metadata cells of each row, by column name."""
     columns = [(header.names[pos], _text_column(frame, pos)) for pos in header.meta_pos]
-    indices = range(len(frame)) if rows is None else rows
-    return [{name: values[i] for name, values in columns if values[i]} for i in indices]
+    return [{name: values[i] for name, values in columns if values[i]}
+            for i in range(len(frame))]
 
 
 def iter_csv_spectra(path, *, chunk_rows: int = 1000, delimiter: str | None = None,
