@@ -20,7 +20,7 @@ selection_app = typer.Typer(help="Stored selection runs (send lists).", no_args_
 # Below this many spectra to load a run is quick and no progress bar is drawn.
 LARGE_POOL_SPECTRA = 2000
 LARGE_PICK_COUNT = 200
-SEND_TABLE_COLUMNS = ["rank", "sample_id", "batch", "use", "cost", "cumulative_cost", "reason"]
+SEND_TABLE_COLUMNS = ["rank", "sample_id", "batch", "source", "use", "cost", "cumulative_cost", "reason"]
 
 
 class _Bars:
@@ -157,7 +157,7 @@ def selection_show(run: str, db: DbOpt = None, as_user: AsOpt = None,
             f"{doc['method']} for {'/'.join(doc['properties'])} on {doc['grade']}, state {doc['state']}",
             f"pool {doc['pool_size']} samples, sha256 {doc['pool_sha256'][:16]}…; total cost "
             f"{doc['total_cost']:g}" + (f" of budget {doc['budget']:g}" if doc["budget"] else ""),
-            "", table(rows, ["rank", "sample_id", "batch", "use", "cost", "results", "reason"]), "",
+            "", table(rows, ["rank", "sample_id", "batch", "source", "use", "cost", "results", "reason"]), "",
             *_benefit_lines(doc["benefit"])])
     emit(fmt, doc, text)
 

@@ -107,12 +107,23 @@ class _Lookups:
 
 
 # --------------------------------------------------------------------------- pieces
-def _sample_doc(lk: _Lookups, s: Sample) -> dict:
+def _sample_doc(lk: _Lookups, s) -> dict:
     return {"id": s.id, "external_id": s.external_id, "site": lk.sites.get(s.site_id),
             "grade": lk.grades.get(s.grade_id), "taken_at": _t(s.taken_at), "batch": s.batch,
             "source": s.source}
 
 
+_SAMPLE_COLS = (Sample.id, Sample.external_id, Sample.site_id, Sample.grade_id, Sample.taken_at,
+                Sample.batch, Sample.source)
+_RR = ReferenceResult
+_RESULT_COLS = (_RR.id, _RR.sample_id, _RR.method_id, _RR.value, _RR.lab, _RR.tested_at,
+                _RR.operator, _RR.comment, _RR.status, _RR.status_reason, _RR.supersedes_id,
+                _RR.selection_pick_id, _RR.sha256, _RR.imported_by_id)
+_MEMBER_COLS = (CalibrationMember.set_id, CalibrationMember.sample_id, CalibrationMember.role,
+                CalibrationMember.reference_value, CalibrationMember.reference_result_ids,
+                CalibrationMember.spectrum_ids)
+# Plain rows (attribute access by column name) rather than ORM objects: building ORM
+# instances was most of a trace's time on a 150-member set.
 _SPECTRUM_COLS = (Spectrum.id, Spectrum.sample_id, Spectrum.instrument_id, Spectrum.axis_id,
                   Spectrum.acquired_at, Spectrum.sha256, Spectrum.operator, Spectrum.source_file,
                   Spectrum.imported_by_id)
@@ -127,7 +138,7 @@ def _spectrum_doc(lk: _Lookups, sp, used: bool | None = None) -> dict:
     return doc
 
 
-def _result_doc(lk: _Lookups, r: ReferenceResult, superseded_by: dict[int, int],
+def _result_doc(lk: _Lookups, r, superseded_by: dict[int, int],
                 used: bool | None = None) -> dict:
     method = lk.methods.get(r.method_id)
     prop = lk.properties.get(method.property_id) if method else None
@@ -149,13 +160,6 @@ def _in_rows(session: Session, stmt_for, ids: Iterable[int]) -> list:
     out = []
     for part in _chunks(ids):
         out += session.execute(stmt_for(part)).all()
-    return out
-
-
-def _in_objects(session: Session, stmt_for, ids: Iterable[int]) -> list:
-    out = []
-    for part in _chunks(ids):
-        out += session.execute(stmt_for(part)).scalars().all()
     return out
 
 
@@ -218,7 +222,7 @@ def _model_doc(session: Session, lk: _Lookups, mv: ModelVersion, cs: Calibration
     parent = session.execute(select(ModelVersion.label).where(
         ModelVersion.id == mv.parent_id)).scalar() if mv.parent_id else None
     rmsecv = (mv.cv or {}).get("rmsecv") or []
-    return {
+    return _clean({
         "id": mv.id, "label": mv.label, "property": prop.code if prop else None,
         "unit": prop.unit if prop else None, "grade": lk.grades.get(mv.grade_id),
         "family": mv.family, "state": mv.state, "author": lk.user(mv.author_id),
@@ -250,7 +254,7 @@ def _model_doc(session: Session, lk: _Lookups, mv: ModelVersion, cs: Calibration
         "due": _due(session, mv, now),
         "audit_events": [{"seq": e.id, "at": _t(e.occurred_at), "user": e.user_name,
                           "action": e.action, "hash": e.hash} for e in events],
-    }
+    })
 
 
 def _qc_at(session: Session, lk: _Lookups, mv: ModelVersion, at: datetime,
@@ -294,22 +298,21 @@ def _due(session: Session, mv: ModelVersion, now: datetime) -> dict:
 
 # --------------------------------------------------------------------------- calibration set
 def _calset_doc(session: Session, lk: _Lookups, cs: CalibrationSet, integrity: dict) -> dict:
-    members = session.execute(select(CalibrationMember).where(CalibrationMember.set_id == cs.id)
-                              .order_by(CalibrationMember.role, CalibrationMember.sample_id)
-                              ).scalars().all()
+    members = session.execute(select(*_MEMBER_COLS).where(CalibrationMember.set_id == cs.id)
+                              .order_by(CalibrationMember.role, CalibrationMember.sample_id)).all()
     sample_ids = [m.sample_id for m in members]
-    samples = {s.id: s for s in _in_objects(
-        session, lambda part: select(Sample).where(Sample.id.in_(part)), sample_ids)}
+    samples = {r.id: r for r in _in_rows(
+        session, lambda part: select(*_SAMPLE_COLS).where(Sample.id.in_(part)), sample_ids)}
     spectra: dict[int, list] = {}
     for sp in _in_rows(session, lambda part: select(*_SPECTRUM_COLS).where(
             Spectrum.sample_id.in_(part)).order_by(Spectrum.acquired_at, Spectrum.id), sample_ids):
         spectra.setdefault(sp.sample_id, []).append(sp)
     method_ids = lk.methods_of(cs.property_id)
-    results: dict[int, list[ReferenceResult]] = {}
+    results: dict[int, list] = {}
     if method_ids:
-        for r in _in_objects(session, lambda part: select(ReferenceResult).where(
-                ReferenceResult.sample_id.in_(part), ReferenceResult.method_id.in_(method_ids))
-                .order_by(ReferenceResult.tested_at, ReferenceResult.id), sample_ids):
+        for r in _in_rows(session, lambda part: select(*_RESULT_COLS).where(
+                _RR.sample_id.in_(part), _RR.method_id.in_(method_ids))
+                .order_by(_RR.tested_at, _RR.id), sample_ids):
             results.setdefault(r.sample_id, []).append(r)
     superseded_by = {r.supersedes_id: r.id for rs in results.values() for r in rs
                      if r.supersedes_id is not None}
@@ -351,23 +354,29 @@ def _calset_doc(session: Session, lk: _Lookups, cs: CalibrationSet, integrity: d
 
 
 def _selections(session: Session, lk: _Lookups, cs: CalibrationSet, sample_ids: list[int],
-                results: dict[int, list[ReferenceResult]], members) -> dict[int, dict]:
+                results: dict[int, list], members) -> dict[int, dict]:
     """The selection run that chose each member: the pick its used result answered, else the
     latest pick of the sample by a run asking for the set's property."""
-    picks = _in_objects(session, lambda part: select(SelectionPick).where(
-        SelectionPick.sample_id.in_(part)), sample_ids)
+    P, Run = SelectionPick, SelectionRun
+    picks = _in_rows(session, lambda part: select(
+        P.id, P.run_id, P.sample_id, P.rank, P.cost, P.reason).where(P.sample_id.in_(part)),
+        sample_ids)
     if not picks:
         return {}
-    runs = {r.id: r for r in _in_objects(session, lambda part: select(SelectionRun).where(
-        SelectionRun.id.in_(part)), {p.run_id for p in picks})}
+    runs = {r.id: r for r in _in_rows(session, lambda part: select(
+        Run.id, Run.method, Run.created_at, Run.user_id, Run.state, Run.property_codes).where(
+        Run.id.in_(part)), {p.run_id for p in picks})}
     prop = lk.properties.get(cs.property_id)
     by_id = {p.id: p for p in picks}
+    by_sample: dict[int, list] = {}
+    for p in picks:
+        by_sample.setdefault(p.sample_id, []).append(p)
     out = {}
     for m in members:
         used = set(m.reference_result_ids or [])
         answered = [by_id[r.selection_pick_id] for r in results.get(m.sample_id, [])
                     if r.id in used and r.selection_pick_id in by_id]
-        asked = sorted((p for p in picks if p.sample_id == m.sample_id and p.run_id in runs
+        asked = sorted((p for p in by_sample.get(m.sample_id, []) if p.run_id in runs
                         and prop is not None and prop.code in (runs[p.run_id].property_codes or [])),
                        key=lambda p: p.run_id, reverse=True)
         pick = (answered or asked or [None])[0]
@@ -422,10 +431,9 @@ def _sample_record(session: Session, lk: _Lookups, sample: Sample, prop, integri
     spectra = session.execute(select(*_SPECTRUM_COLS).where(Spectrum.sample_id == sample.id)
                               .order_by(Spectrum.acquired_at, Spectrum.id)).all()
     method_ids = lk.methods_of(prop.id)
-    results = session.execute(select(ReferenceResult).where(
-        ReferenceResult.sample_id == sample.id, ReferenceResult.method_id.in_(method_ids))
-        .order_by(ReferenceResult.tested_at, ReferenceResult.id)).scalars().all() \
-        if method_ids else []
+    results = session.execute(select(*_RESULT_COLS).where(
+        _RR.sample_id == sample.id, _RR.method_id.in_(method_ids))
+        .order_by(_RR.tested_at, _RR.id)).all() if method_ids else []
     superseded_by = {r.supersedes_id: r.id for r in results if r.supersedes_id is not None}
     memberships = session.execute(select(CalibrationMember, CalibrationSet).join(
         CalibrationSet, CalibrationSet.id == CalibrationMember.set_id).where(
@@ -553,4 +561,4 @@ def build_trace(session: Session, *, prediction_id: int | None = None, sample: s
         doc["model"] = _model_doc(session, lk, mv, cs, None, None, now, doc["integrity"])
         doc["calibration_set"] = _calset_doc(session, lk, cs, doc["integrity"]) if cs else None
     doc["integrity"]["altered"] = list(dict.fromkeys(doc["integrity"]["altered"]))
-    return _clean(doc)
+    return doc

@@ -20,8 +20,8 @@ from __future__ import annotations
 
 import numpy as np
 
-# Target size (elements) of any temporary block: 4 M float64 = 32 MB.
-BLOCK_ELEMENTS = 4_000_000
+# Target size (elements) of any temporary block: 2 M float64 = 16 MB.
+BLOCK_ELEMENTS = 2_000_000
 
 
 class SquaredDistances:
@@ -65,7 +65,8 @@ class SquaredDistances:
                 block = X[a:a + step].astype(np.float64, copy=True)
                 block -= centre
                 block *= block
-                self.norms[a:a + step] = block @ weights if weights is not None else block.sum(axis=1)
+                self.norms[a:a + step] = (block @ weights if weights is not None
+                                          else block.sum(axis=1))
             # Rounding of X @ v scales with the *uncentred* norms, at most
             # (max ||x - c||_W + ||c||_W)².
             c_norm = float(np.sqrt(centre**2 @ weights if weights is not None else centre @ centre))

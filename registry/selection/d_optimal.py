@@ -98,8 +98,11 @@ def d_optimal(T, n_select, *, already_selected=None, intercept: bool = True,
         Use ``Z = [1, T]`` (default) or ``Z = T``.
     n_starts : int
         Random starting designs, in addition to a greedy sequential start
-        and a Kennard–Stone start. The best final design wins (ties: the
-        earlier start).
+        (rows added one at a time, each maximising the det(ZᵀZ + δI) gain)
+        and a Kennard–Stone start (Euclidean on ``T``, ``start="approx-
+        farthest"``, augmenting the fixed rows). The best final design wins
+        (ties: the earlier start). Ties between swaps go to the earliest
+        (candidate block, design slot, candidate) in scan order.
     random_state : None, int or numpy Generator
         Seed of the random starts; a given seed always gives the same result.
     max_iter : int
@@ -166,7 +169,7 @@ def d_optimal(T, n_select, *, already_selected=None, intercept: bool = True,
                          "(near) collinear or duplicated", field="T")
     label, tracked, swaps, subset = best
     ranked = _rank_by_gain(Z, fixed, subset)
-    sign, log_det = _log_det(Z, fixed, ranked)
+    _, log_det = _log_det(Z, fixed, ranked)
     return DOptimalResult(indices=ranked, log_det=float(log_det), tracked_log_det=float(tracked),
                           n_exchanges=int(swaps), start=label, log_det_by_start=by_start)
 

@@ -325,12 +325,13 @@ def _nearest_labels(S_cal: np.ndarray, S_pool: np.ndarray, picks: np.ndarray,
 
 
 def _reason(method: str, use: str, rank: int, dist: float, nearest: str, lev: float, gain: float,
-            metric: str, flags_text: str) -> str:
+            metric: str, flags_text: str, has_reference: bool) -> str:
     what = "Mahalanobis distance" if metric == "mahalanobis" else "distance"
     near = f"{what} {dist:.3g} to the nearest {nearest}" if nearest else ""
     if method == "kennard-stone":
-        text = (f"largest remaining gap in the calibration space: {near}" if near and rank > 2
-                or "calibration sample" in nearest else
+        # without a calibration the first two picks are the most distant pair of the pool
+        text = (f"largest remaining gap in the calibration space: {near}"
+                if has_reference or rank > 2 else
                 "one of the two most different samples of the pool" + (f" ({near})" if near else ""))
     elif method == "d-optimal":
         text = (f"raises ln det(Z'Z) by {gain:.3g} (leverage {lev:.3g})" if math.isfinite(gain)
@@ -552,7 +553,7 @@ def run_selection(session: Session, actor: Actor, *, property_codes: list[str], 
             "tests": tests_text, "cost": cost,
             "cumulative_cost": spent,
             "reason": _reason(method, use[r], r + 1, dist, near, lev, gain, metric,
-                              "; ".join(flag_texts)),
+                              "; ".join(flag_texts), n_cal > 0),
             "distance": dist, "nearest_sample": near, "leverage": lev, "log_det_gain": gain,
             "flags": flags,
             "diagnostics": {c: {key: diag_records[c][uni_row][key] for key in

@@ -80,30 +80,52 @@ def load_matrix(session: Session, spectrum_ids: Sequence[int], *, verify: bool =
     axis_row = None
     axis_x = None
     seen = 0
-    table = Spectrum.__table__
-    conn = session.connection()  # Core rows: the ORM's row processing would dominate here
-    for part in _id_blocks(ids):
-        where = (table.c.id.between(part[0], part[-1]) if part[-1] - part[0] + 1 == len(part)
-                 else table.c.id.in_(part))
-        for sid, aid, blob, digest in conn.execute(
-                select(table.c.id, table.c.axis_id, table.c.data, table.c.sha256).where(where)):
-            if axis_id is None:
-                axis_id = aid
-                axis_row = session.get(SpectralAxis, aid)
-                out = np.empty((len(ids), axis_row.n_points), dtype=dtype)
-                if verify:
-                    axis_x = axis_values(axis_row)
-            elif aid != axis_id:
-                raise InputError(f"spectrum {sid} is on another axis than spectrum {ids[0]}: "
-                                 "resample to one axis before combining")
-            y = np.frombuffer(blob, dtype="<f4")
-            if verify and content_sha256(axis_x, y) != digest:
-                raise IntegrityError(f"spectrum {sid}: stored data do not match their hash")
-            out[position[sid]] = y
-            seen += 1
+    for sid, aid, blob, digest in _raw_rows(session, ids, with_hash=verify):
+        if axis_id is None:
+            axis_id = aid
+            axis_row = session.get(SpectralAxis, aid)
+            out = np.empty((len(ids), axis_row.n_points), dtype=dtype)
+            if verify:
+                axis_x = axis_values(axis_row)
+        elif aid != axis_id:
+            raise InputError(f"spectrum {sid} is on another axis than spectrum {ids[0]}: "
+                             "resample to one axis before combining")
+        y = np.frombuffer(blob, dtype="<f4")
+        if verify and content_sha256(axis_x, y) != digest:
+            raise IntegrityError(f"spectrum {sid}: stored data do not match their hash")
+        out[position[sid]] = y
+        seen += 1
     if seen != len(ids):
         raise InputError(f"{len(ids) - seen} requested spectra do not exist")
     return out, axis_row
+
+
+def _raw_rows(session: Session, ids: list[int], *, with_hash: bool):
+    """(id, axis_id, data, sha256) rows straight from the DB-API cursor.
+
+    The blobs are the bulk of a calibration set; SQLAlchemy's row objects would
+    cost more than the read itself, so this one query uses the driver directly
+    (same SQL on SQLite and PostgreSQL but for the parameter style).
+    """
+    conn = session.connection()
+    ph = "?" if conn.dialect.paramstyle == "qmark" else "%s"
+    columns = "id, axis_id, data, " + ("sha256" if with_hash else "''")
+    cursor = conn.connection.driver_connection.cursor()
+    try:
+        for part in _id_blocks(ids):
+            if part[-1] - part[0] + 1 == len(part):
+                cursor.execute(f"SELECT {columns} FROM spectrum WHERE id BETWEEN {ph} AND {ph}",
+                               (part[0], part[-1]))
+            else:
+                marks = ",".join([ph] * len(part))
+                cursor.execute(f"SELECT {columns} FROM spectrum WHERE id IN ({marks})", tuple(part))
+            while True:
+                rows = cursor.fetchmany(2000)
+                if not rows:
+                    break
+                yield from rows
+    finally:
+        cursor.close()
 
 
 def _id_blocks(ids: list[int]) -> list[list[int]]:

@@ -1,0 +1,239 @@
+"""Read-only views for the front end: pick lists, recent predictions, coverage map, QC charts, traces.
+
+Every function checks ``view`` (every role holds it, but a signed-in user is
+needed), reads through the storage layer and writes nothing, so nothing is
+audited.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime, timedelta
+from typing import Any
+
+import numpy as np
+from sklearn.decomposition import PCA
+from sqlmodel import Session, select
+
+from ..errors import InputError, NotFoundError
+from ..lifecycle.permissions import Action
+from ..spectra.axes import resample
+from ..storage.models import (CalibrationMember, CalibrationSet, Grade, Instrument, ModelVersion,
+                              Prediction, Property, QCResult, ReferenceMethod, Sample, Site,
+                              Spectrum, User)
+from ..storage.spectra_store import axis_values, load_matrix
+from ..storage.types import as_utc
+from .admin import get_grade, get_property
+from .context import Actor, authorize
+from .models import get_model, load_trained
+
+#: Checks that say a spectrum lies outside the calibration space (domain notes §4); the
+#: y-range check is about the predicted value, not the spectrum, so it is not one of them.
+SPACE_FLAGS = ("leverage", "hotelling_t2", "q_residual", "nearest_neighbour")
+#: Largest number of recent spectra a coverage map loads (newest first), to keep the page fast.
+MAX_RECENT = 5000
+
+
+# --------------------------------------------------------------------------- pick lists
+
+def catalog(session: Session, actor: Actor) -> dict[str, list[dict]]:
+    """Properties, grades, sites, instruments and reference methods, for pick lists."""
+    authorize(actor, Action.VIEW)
+    sites = {s.id: s for s in session.exec(select(Site).order_by(Site.name)).all()}
+    props = {p.id: p.code for p in session.exec(select(Property)).all()}
+    return {
+        "properties": [{"code": p.code, "name": p.name, "unit": p.unit}
+                       for p in session.exec(select(Property).order_by(Property.code)).all()],
+        "grades": [{"code": g.code, "name": g.name, "family": g.family}
+                   for g in session.exec(select(Grade).order_by(Grade.code)).all()],
+        "sites": [{"name": s.name, "timezone": s.timezone} for s in sites.values()],
+        "instruments": [{"serial": i.serial, "site": sites[i.site_id].name, "active": i.active,
+                         "range_cm1": [i.range_low_cm1, i.range_high_cm1],
+                         "resolution_cm1": i.resolution_cm1}
+                        for i in session.exec(select(Instrument).order_by(Instrument.serial)).all()],
+        "methods": [{"code": m.code, "property": props.get(m.property_id), "cost": m.cost,
+                     "currency": m.currency, "active": m.active}
+                    for m in session.exec(select(ReferenceMethod).order_by(ReferenceMethod.code)).all()],
+    }
+
+
+def recent_predictions(session: Session, actor: Actor, *, limit: int = 50) -> list[dict]:
+    """The newest predictions (newest first) with their value, model and flags."""
+    authorize(actor, Action.VIEW)
+    if isinstance(limit, bool) or not isinstance(limit, int) or limit < 1:
+        raise InputError(f"limit must be a whole number ≥ 1, got {limit!r}", field="limit")
+    preds = session.exec(select(Prediction).order_by(Prediction.predicted_at.desc(),
+                                                     Prediction.id.desc()).limit(limit)).all()
+    if not preds:
+        return []
+    models = {m.id: m for m in session.exec(select(ModelVersion).where(
+        ModelVersion.id.in_({p.model_version_id for p in preds}))).all()}
+    props = {p.id: p for p in session.exec(select(Property)).all()}
+    serials = {i.id: i.serial for i in session.exec(select(Instrument)).all()}
+    users = {u.id: u.name for u in session.exec(select(User)).all()}
+    spectra = {sp_id: ext for sp_id, ext in session.exec(
+        select(Spectrum.id, Sample.external_id).join(Sample, Sample.id == Spectrum.sample_id)
+        .where(Spectrum.id.in_({p.spectrum_id for p in preds}))).all()}
+    out = []
+    for p in preds:
+        mv = models[p.model_version_id]
+        prop = props[mv.property_id]
+        out.append({"id": p.id, "predicted_at": as_utc(p.predicted_at), "sample": spectra.get(p.spectrum_id),
+                    "spectrum_id": p.spectrum_id, "property": prop.code, "unit": prop.unit,
+                    "value": p.value, "model": mv.label, "instrument": serials.get(p.instrument_id),
+                    "by": users.get(p.user_id), "flags": list(p.flags or [])})
+    return out
+
+
+def qc_charts_available(session: Session, actor: Actor) -> list[dict]:
+    """Every (instrument, material, property) with QC results, and how many."""
+    authorize(actor, Action.VIEW)
+    serials = {i.id: i.serial for i in session.exec(select(Instrument)).all()}
+    props = {p.id: p.code for p in session.exec(select(Property)).all()}
+    counts: dict[tuple[int, str, int], int] = {}
+    for inst_id, material, prop_id in session.exec(
+            select(QCResult.instrument_id, QCResult.material, QCResult.property_id)).all():
+        key = (inst_id, material, prop_id)
+        counts[key] = counts.get(key, 0) + 1
+    rows = [{"instrument": serials[i], "material": m, "property": props[p], "n": n}
+            for (i, m, p), n in counts.items()]
+    return sorted(rows, key=lambda r: (r["instrument"], r["material"], r["property"]))
+
+
+# --------------------------------------------------------------------------- coverage
+
+def _model_for(session: Session, prop: Property, grade: Grade, label: str | None) -> ModelVersion:
+    """The named version, else the active one, else the newest approved or validated one."""
+    if label:
+        mv = get_model(session, label)
+        if mv.property_id != prop.id or mv.grade_id != grade.id:
+            raise InputError(f"model {mv.label} is not a {prop.code} model for grade {grade.code}",
+                             field="model")
+        return mv
+    for states in (("active",), ("approved", "validated")):
+        mv = session.exec(select(ModelVersion).where(
+            ModelVersion.property_id == prop.id, ModelVersion.grade_id == grade.id,
+            ModelVersion.state.in_(states)).order_by(ModelVersion.id.desc())).first()
+        if mv is not None:
+            return mv
+    raise NotFoundError(f"no active, approved or validated {prop.code} model for grade {grade.code}")
+
+
+def _on_axis(session: Session, ids: list[int], target: np.ndarray) -> np.ndarray:
+    """Spectra ``ids`` (any axes) as rows on the ``target`` axis, in the order given."""
+    axis_of = dict(session.exec(select(Spectrum.id, Spectrum.axis_id).where(Spectrum.id.in_(ids))).all())
+    out = np.empty((len(ids), target.size))
+    by_axis: dict[int, list[int]] = {}
+    for k, sid in enumerate(ids):
+        by_axis.setdefault(axis_of[sid], []).append(k)
+    for rows in by_axis.values():
+        X, axis_row = load_matrix(session, [ids[k] for k in rows])
+        x = axis_values(axis_row)
+        if not (x.shape == target.shape and np.array_equal(x, target)):
+            X = resample(X, x, target, kind="linear")
+        out[rows] = X
+    return out
+
+
+def _week_start(t: datetime) -> datetime:
+    t = as_utc(t)
+    return (t - timedelta(days=t.weekday())).replace(hour=0, minute=0, second=0, microsecond=0)
+
+
+def coverage_map(session: Session, actor: Actor, property_code: str, grade_code: str, *,
+                 days: int = 90, model: str | None = None) -> dict[str, Any]:
+    """Where recent production lies relative to a model's calibration space.
+
+    The model is ``model`` or the current one of the property and grade (active,
+    else the newest approved or validated). Its calibration spectra are
+    preprocessed by the model's own recipe and a PCA (two components) is fitted
+    on them; the grade's other spectra acquired in the ``days`` before the newest
+    spectrum of the grade (anchored on the data, as the selection benefit
+    figures are, so the map does not empty when no spectra arrived lately) are
+    projected into it and judged by the model's prediction-time checks
+    (leverage, Hotelling T², Q residual, nearest neighbour; domain notes §4).
+
+    Returns
+    -------
+    dict
+        ``model, property, grade, since, until, days, explained_variance`` (2),
+        ``calibration`` (``scores`` (n, 2), ``samples``), ``recent``
+        (``scores`` (m, 2), ``samples``, ``spectrum_ids``, ``acquired_at``,
+        ``outside`` bool (m,), ``flags``), ``counts`` (``calibration, recent,
+        outside, share_outside``) and ``weekly`` (``week_start, n, outside,
+        share``) rows.
+    """
+    authorize(actor, Action.VIEW)
+    if isinstance(days, bool) or not isinstance(days, int) or days < 1:
+        raise InputError(f"days must be a whole number ≥ 1, got {days!r}", field="days")
+    prop = get_property(session, property_code)
+    grade = get_grade(session, grade_code)
+    mv = _model_for(session, prop, grade, model)
+    trained = load_trained(mv)
+    cs = session.get(CalibrationSet, mv.calibration_set_id)
+    members = session.exec(select(CalibrationMember).where(
+        CalibrationMember.set_id == cs.id, CalibrationMember.role == "cal")
+        .order_by(CalibrationMember.id)).all()
+    cal_ids = [int(s) for m in members for s in m.spectrum_ids]
+    cal_samples = dict(session.exec(select(Sample.id, Sample.external_id).where(
+        Sample.id.in_({m.sample_id for m in members}))).all())
+    cal_labels = [cal_samples[m.sample_id] for m in members for _ in m.spectrum_ids]
+    X_cal = trained.preprocessor.transform(_on_axis(session, cal_ids, trained.axis))
+    if X_cal.shape[0] < 3:
+        raise InputError(f"model {mv.label} has {X_cal.shape[0]} calibration spectra; a map needs 3",
+                         field="model")
+    pca = PCA(n_components=2).fit(X_cal)
+
+    grade_rows = session.exec(select(Spectrum.id, Spectrum.acquired_at, Sample.external_id)
+                              .join(Sample, Sample.id == Spectrum.sample_id)
+                              .where(Sample.grade_id == grade.id)
+                              .order_by(Spectrum.acquired_at.desc(), Spectrum.id.desc())).all()
+    until = as_utc(grade_rows[0][1]) if grade_rows else None
+    since = until - timedelta(days=days) if until else None
+    cal_set = set(cal_ids)
+    recent = [(sid, as_utc(t), ext) for sid, t, ext in grade_rows
+              if sid not in cal_set and as_utc(t) >= since][:MAX_RECENT]
+    recent.reverse()  # oldest first, for time plots
+    if recent:
+        ids = [r[0] for r in recent]
+        X_new = _on_axis(session, ids, trained.axis)
+        _, diag = trained.predict(X_new)
+        flags = diag.flag_lists()
+        scores_new = pca.transform(trained.preprocessor.transform(X_new))
+    else:
+        flags, scores_new = [], np.empty((0, 2))
+    outside = np.array([any(f in SPACE_FLAGS for f in fl) for fl in flags], dtype=bool)
+    weekly: dict[datetime, list[int]] = {}
+    for (_, t, _), out in zip(recent, outside):
+        w = weekly.setdefault(_week_start(t), [0, 0])
+        w[0] += 1
+        w[1] += int(out)
+    return {
+        "model": mv.label, "model_state": mv.state, "property": prop.code, "grade": grade.code,
+        "days": days, "since": since, "until": until,
+        "explained_variance": pca.explained_variance_ratio_.copy(),
+        "calibration": {"scores": pca.transform(X_cal), "samples": cal_labels},
+        "recent": {"scores": scores_new, "samples": [r[2] for r in recent],
+                   "spectrum_ids": [r[0] for r in recent], "acquired_at": [r[1] for r in recent],
+                   "outside": outside, "flags": flags},
+        "counts": {"calibration": int(X_cal.shape[0]), "recent": len(recent),
+                   "outside": int(outside.sum()),
+                   "share_outside": float(outside.mean()) if len(recent) else None},
+        "weekly": [{"week_start": w, "n": n, "outside": k, "share": k / n}
+                   for w, (n, k) in sorted(weekly.items())],
+    }
+
+
+# --------------------------------------------------------------------------- trace
+
+def trace_documents(session: Session, actor: Actor, prediction_id: int) -> dict[str, Any]:
+    """The trace of one prediction as a document, plain text and a self-contained HTML page.
+
+    Tracing needs the ``trace`` permission as well (checked by the audit service).
+    """
+    authorize(actor, Action.VIEW)
+    from ..lineage.trace_render import render
+    from .audit import trace
+
+    doc = trace(session, actor, prediction_id=int(prediction_id))
+    return {"document": doc, "text": render(doc, "text"), "json": render(doc, "json"),
+            "html": render(doc, "html")}

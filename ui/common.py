@@ -1,0 +1,126 @@
+"""What every page shares: the signed-in actor, calling services, errors, the caution, colours.
+
+Pages call service functions only (``registry.services.*``); each call runs in
+its own transaction (one user action = one transaction). A refused or bad
+request (:class:`registry.errors.RegistryError`) is shown as an error message,
+never as a traceback.
+"""
+
+from __future__ import annotations
+
+import importlib
+from datetime import datetime
+from typing import Any, Callable
+
+import streamlit as st
+
+from registry.errors import RegistryError
+from registry.lifecycle.permissions import Action, is_allowed
+from registry.services.context import Actor
+from registry.storage.engine import get_engine, resolve_url, session_scope
+
+CAUTION = ("Model predictions are estimates: they do not replace the specification test method. "
+           "Fuels are flammable and toxic; handle samples under the laboratory's safety procedures. "
+           "Follow local regulations and accredited practice.")
+
+# A neutral palette (greys and one blue, one brick red for "outside"); no traffic-light bands.
+COLOURS = {"calibration": "#8a8a8a", "inside": "#2f5d8a", "outside": "#b3472d",
+           "line": "#3a3a3a", "limit": "#9a9a9a", "centre": "#5b5b5b", "marker": "#b3472d"}
+PLOT_TEMPLATE = "simple_white"
+
+ACTOR_KEY = "actor"
+FLASH_KEY = "flash"
+
+
+class _Failed:
+    """Returned by :func:`call` when the service refused; falsy."""
+
+    def __bool__(self) -> bool:
+        return False
+
+
+FAILED = _Failed()
+
+
+def database_url() -> str:
+    return resolve_url()
+
+
+def engine():
+    return get_engine(database_url())
+
+
+def actor() -> Actor | None:
+    return st.session_state.get(ACTOR_KEY)
+
+
+def require_actor() -> Actor:
+    """The signed-in actor; stops the page if nobody is signed in."""
+    a = actor()
+    if a is None:
+        st.warning("Sign in first.")
+        st.stop()
+    return a
+
+
+def may(action: Action) -> bool:
+    a = actor()
+    return a is not None and is_allowed(a.roles, action)
+
+
+def show_error(exc: RegistryError) -> None:
+    """The error's message; every line of an all-or-nothing import that was refused."""
+    st.error(str(exc))
+    lines = getattr(exc, "errors", None)
+    if lines:
+        st.markdown(f"**{len(lines)} problem(s) found:**")
+        st.code("\n".join(e.located() if hasattr(e, "located") else str(e) for e in lines),
+                language=None)
+
+
+def call(fn: Callable[..., Any], *args: Any, with_actor: bool = True, **kwargs: Any) -> Any:
+    """Run ``fn(session, actor, *args, **kwargs)`` in one transaction.
+
+    Returns its result, or :data:`FAILED` after showing the error.
+    """
+    try:
+        with session_scope(engine()) as session:
+            if with_actor:
+                return fn(session, actor(), *args, **kwargs)
+            return fn(session, *args, **kwargs)
+    except RegistryError as exc:
+        show_error(exc)
+        return FAILED
+
+
+def optional_service(name: str):
+    """``registry.services.<name>`` if that module exists, else None (shown as not available)."""
+    try:
+        return importlib.import_module(f"registry.services.{name}")
+    except ModuleNotFoundError as exc:
+        if exc.name and exc.name.endswith(name):
+            return None
+        raise
+
+
+def not_available(what: str, module: str) -> None:
+    st.info(f"{what} is not available in this installation (registry.services.{module} is missing).")
+
+
+def flash(message: str) -> None:
+    """Keep a success message for the next run (shown after st.rerun)."""
+    st.session_state[FLASH_KEY] = message
+
+
+def show_flash() -> None:
+    msg = st.session_state.pop(FLASH_KEY, None)
+    if msg:
+        st.success(msg)
+
+
+def when(t: datetime | None) -> str:
+    return "" if t is None else f"{t:%Y-%m-%d %H:%M} UTC"
+
+
+def flags_text(flags: list[str] | None) -> str:
+    return ", ".join(flags) if flags else ""

@@ -1,0 +1,82 @@
+"""Import: spectrum files (JCAMP-DX, CSV) and reference-result CSV files, all or nothing."""
+
+from __future__ import annotations
+
+import tempfile
+from pathlib import Path
+
+import streamlit as st
+
+from registry.lifecycle.permissions import Action
+from registry.services import intake, references, views
+from ui.common import FAILED, call, may, require_actor
+
+require_actor()
+st.title("Import")
+st.write("Every file is checked before anything is stored: one bad line refuses the whole import, "
+         "and every problem found is listed.")
+
+
+def safe_name(name: str) -> str:
+    """The file's own name without folders (an upload name is not trusted as a path)."""
+    return Path(name).name or "upload"
+
+
+st.subheader("Spectra")
+if not may(Action.IMPORT_SPECTRA):
+    st.info("Importing spectra is an analyst's task; your roles do not include it.")
+else:
+    cat = call(views.catalog)
+    serials = [i["serial"] for i in cat["instruments"] if i["active"]] if cat is not FAILED else []
+    with st.form("import_spectra"):
+        files = st.file_uploader("Spectrum files", type=["jdx", "dx", "jcamp", "jcm", "csv", "tsv", "txt"],
+                                 accept_multiple_files=True, key="imp_spectra_files")
+        instrument = st.selectbox("Instrument", serials, key="imp_spectra_instrument",
+                                  help="A CSV instrument column overrides it row by row.")
+        duplicate = st.radio("A spectrum already stored", ["error", "skip"], horizontal=True,
+                             key="imp_spectra_duplicate")
+        go = st.form_submit_button("Import spectra")
+    if go:
+        if not files:
+            st.error("choose at least one file")
+        else:
+            with tempfile.TemporaryDirectory(prefix="specledger-upload-") as tmp:
+                paths = []
+                for k, f in enumerate(files):
+                    folder = Path(tmp) / str(k)  # two uploads may share a name
+                    folder.mkdir()
+                    path = folder / safe_name(f.name)
+                    path.write_bytes(f.getvalue())
+                    paths.append(path)
+                summary = call(intake.import_spectra, paths, instrument=instrument,
+                               on_duplicate=duplicate)
+            if summary is not FAILED:
+                st.success(f"{summary.imported} spectra imported, {summary.skipped} skipped as already "
+                           f"stored, {summary.samples_created} new samples, from {summary.files} file(s).")
+                st.dataframe([{"file": Path(p).name, **v} for p, v in summary.per_file.items()],
+                             hide_index=True, key="imp_spectra_summary")
+
+st.subheader("Reference results")
+if not may(Action.IMPORT_REFERENCES):
+    st.info("Importing reference results is an analyst's task; your roles do not include it.")
+else:
+    st.caption("CSV columns: " + ", ".join(references.REQUIRED_COLUMNS)
+               + " (optional: " + ", ".join(references.OPTIONAL_COLUMNS) + ")")
+    with st.form("import_references"):
+        ref_file = st.file_uploader("Reference CSV", type=["csv", "txt"], key="imp_ref_file")
+        go_ref = st.form_submit_button("Import reference results")
+    if go_ref:
+        if ref_file is None:
+            st.error("choose a file")
+        else:
+            try:
+                text = ref_file.getvalue().decode("utf-8-sig")
+            except UnicodeDecodeError as exc:
+                st.error(f"{safe_name(ref_file.name)}: not UTF-8 text ({exc.reason} at byte {exc.start})")
+                text = None
+            if text is not None:
+                summary = call(references.import_references, safe_name(ref_file.name), text=text)
+                if summary is not FAILED:
+                    st.success(f"{summary.imported} results imported; {summary.suspect} marked suspect "
+                               f"(repeats further apart than the method's repeatability); "
+                               f"{summary.linked_to_selection} answer a selection run.")

@@ -1,0 +1,93 @@
+"""Send list: which untested samples to send for reference testing within a budget."""
+
+from __future__ import annotations
+
+import pandas as pd
+import streamlit as st
+
+from registry.lifecycle.permissions import Action
+from registry.services import views
+from ui.common import FAILED, call, may, not_available, optional_service, require_actor
+
+require_actor()
+st.title("Send list")
+selection = optional_service("selection")
+if selection is None:
+    not_available("Sample selection", "selection")
+    st.stop()
+if not may(Action.SELECTION_RUN):
+    st.info("Choosing samples for reference testing is a lab manager's task; your roles do not "
+            "include it.")
+    st.stop()
+
+cat = call(views.catalog)
+if cat is FAILED:
+    st.stop()
+props = [p["code"] for p in cat["properties"]]
+grades = [g["code"] for g in cat["grades"]]
+costs = {}
+for m in cat["methods"]:
+    if m["active"]:
+        costs.setdefault(m["property"], f"{m['code']}: {m['cost']:g} {m['currency']}")
+
+with st.form("selection_form"):
+    c1, c2 = st.columns(2)
+    chosen = c1.multiselect("Properties to test", props, default=props[:1], key="sel_properties",
+                            help="Each picked sample is tested for every property named.")
+    grade = c2.selectbox("Grade", grades, key="sel_grade")
+    c3, c4 = st.columns(2)
+    method = c3.selectbox("Method", list(selection.METHODS), key="sel_method",
+                          help="kennard-stone: fill gaps around the current calibration; d-optimal: "
+                               "widen it; duplex: a new calibration and validation pair.")
+    pool = c4.selectbox("Candidates", list(selection.POOLS), key="sel_pool",
+                        help="unreferenced: every untested sample of the grade; outside-coverage: "
+                             "only those the current model flags.")
+    c5, c6 = st.columns(2)
+    mode = c5.radio("Limit by", ["budget", "number of samples"], key="sel_mode", horizontal=True)
+    amount = c6.number_input("Budget or number", min_value=1.0, value=3000.0, step=1.0,
+                             key="sel_amount")
+    store = st.checkbox("Store the run (picked samples then wait for their results)", value=True,
+                        key="sel_store")
+    go = st.form_submit_button("Choose samples")
+st.caption("Cost per sample by method: " + "; ".join(f"{p} {costs[p]}" for p in chosen if p in costs))
+
+if go:
+    kwargs = {"budget": float(amount)} if mode == "budget" else {"n": int(amount)}
+    result = call(selection.run_selection, property_codes=chosen, grade=grade, method=method,
+                  pool=pool, store=store, **kwargs)
+    if result is not FAILED:
+        st.session_state["sel_result"] = {
+            "run_id": result.run.id if result.run is not None else None,
+            "rows": result.rows, "benefit": result.benefit, "model": result.model_label,
+            "pool_size": result.pool_size, "tests": result.tests, "currency": result.currency,
+            "total_cost": result.total_cost, "csv": selection.send_list_csv(result.rows)}
+
+
+def benefit_lines(b: dict) -> list[str]:
+    pct = lambda v: "not known (no calibration yet)" if v is None else f"{100 * v:.1f} %"  # noqa: E731
+    num = lambda v: "not known" if v is None else f"{v:.3g}"  # noqa: E731
+    if not b:
+        return []
+    return [f"Recent production inside the calibration space ({b['n_recent']} samples of the last "
+            f"{b['recent_window_days']} days): {pct(b.get('inside_share_now'))} now, "
+            f"{pct(b.get('inside_share_after'))} once these samples are in.",
+            f"Widest gap (largest {b['distance']} distance from a recent sample to the nearest "
+            f"calibration sample): {num(b.get('largest_gap_now'))} now, "
+            f"{num(b.get('largest_gap_after'))} after."]
+
+
+res = st.session_state.get("sel_result")
+if res:
+    head = (f"{len(res['rows'])} sample(s) from a pool of {res['pool_size']}; tests {res['tests']}; "
+            f"total {res['total_cost']:g} {res['currency']}")
+    head += f"; space of model {res['model']}" if res["model"] else "; no current model (plain PCA)"
+    head += f"; stored as run {res['run_id']}" if res["run_id"] else "; preview, not stored"
+    st.success(head)
+    for line in benefit_lines(res["benefit"]):
+        st.markdown(f"- {line}")
+    cols = [c for c in selection.SEND_LIST_COLUMNS if c != "tests"]
+    st.dataframe(pd.DataFrame([{c: (", ".join(r[c]) if isinstance(r.get(c), list) else r.get(c))
+                                for c in cols} for r in res["rows"]]),
+                 hide_index=True, key="sel_table")
+    st.download_button("Download send list (CSV)", res["csv"], file_name="send-list.csv",
+                       mime="text/csv", key="sel_download")
