@@ -676,7 +676,8 @@ def _store(session: Session, actor: Actor, result: SelectionResult, grade: Grade
         session.add(SelectionPick(
             run_id=run.id, sample_id=row["sample_pk"], rank=row["rank"], cost=row["cost"],
             cumulative_cost=row["cumulative_cost"], reason=row["reason"],
-            rationale=_jsonable({k: row[k] for k in ("use", "tests", "distance", "nearest_sample",
+            rationale=_jsonable({k: row[k] for k in ("use", "source", "tests", "distance",
+                                                     "nearest_sample",
                                                      "leverage", "log_det_gain", "flags",
                                                      "diagnostics")})))
     session.flush()
@@ -781,7 +782,8 @@ def run_detail(session: Session, actor: Actor, run_id: int | str) -> dict[str, A
             "pool_size": run.pool_size, "budget": run.budget, "total_cost": run.total_cost,
             "benefit": run.benefit,
             "picks": [{"rank": p.rank, "sample_id": samples[p.sample_id].external_id,
-                       "batch": samples[p.sample_id].batch, "source": samples[p.sample_id].source,
+                       "batch": samples[p.sample_id].batch,
+                       "source": (p.rationale or {}).get("source") or samples[p.sample_id].source,
                        "use": (p.rationale or {}).get("use", "calibration"),
                        "tests": (p.rationale or {}).get("tests", ""), "cost": p.cost,
                        "cumulative_cost": p.cumulative_cost, "reason": p.reason,

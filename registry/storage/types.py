@@ -14,8 +14,10 @@ from sqlalchemy.types import TypeDecorator
 
 
 def utcnow() -> datetime:
-    """Current time, timezone-aware UTC, truncated to microseconds (both engines keep µs)."""
-    return datetime.now(timezone.utc)
+    """Current time, timezone-aware UTC (from the registry clock, see registry.clock)."""
+    from ..clock import now
+
+    return now()
 
 
 def as_utc(value: datetime | None) -> datetime | None:

@@ -183,8 +183,9 @@ def test_untouched_registry_verifies(lineage_sqlite):
     report = _verify_url(url)
     assert report.intact, [p.text() for p in report.problems]
     assert report.first_broken_seq is None
-    assert report.checked["spectrum"] == 72 and report.checked["prediction"] == 3
-    assert report.checked["signature"] == 1 and report.checked["calibration_set"] == 1
+    assert report.checked["spectrum"] == 160 and report.checked["prediction"] == 3
+    # approval and activation are both signed
+    assert report.checked["signature"] == 2 and report.checked["calibration_set"] == 1
 
 
 def test_chain_matches_an_independent_recomputation(lineage_sqlite):

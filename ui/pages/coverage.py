@@ -6,6 +6,7 @@ import pandas as pd
 import plotly.graph_objects as go
 import streamlit as st
 
+from registry.services import models as model_svc
 from registry.services import views
 from ui.common import COLOURS, FAILED, PLOT_TEMPLATE, call, require_actor
 
@@ -24,6 +25,12 @@ grades = [g["code"] for g in cat["grades"]]
 if not props or not grades:
     st.info("The registry has no properties or grades yet.")
     st.stop()
+# Offer first the property and grade of a model that has a calibration space to show.
+usable = call(model_svc.list_models)
+usable = [r for r in (usable or []) if r["state"] in ("active", "approved", "validated") and r["grade"]]
+if usable:
+    props.sort(key=lambda p: p != usable[0]["property"])
+    grades.sort(key=lambda g: g != usable[0]["grade"])
 c1, c2, c3 = st.columns(3)
 prop = c1.selectbox("Property", props, key="cov_property")
 grade = c2.selectbox("Grade", grades, key="cov_grade")
