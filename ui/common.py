@@ -17,7 +17,7 @@ import streamlit as st
 from registry.errors import RegistryError
 from registry.lifecycle.permissions import Action, is_allowed
 from registry.services.context import Actor
-from registry.storage.engine import get_engine, resolve_url, session_scope
+from registry.storage.engine import get_engine, mask_url, resolve_url, session_scope
 
 CAUTION = ("Model predictions are estimates: they do not replace the specification test method. "
            "Fuels are flammable and toxic; handle samples under the laboratory's safety procedures. "
@@ -54,11 +54,54 @@ def actor() -> Actor | None:
     return st.session_state.get(ACTOR_KEY)
 
 
+def sidebar() -> None:
+    """Who is signed in, sign out, the registry in use, and the caution (on every page).
+
+    Each page draws it itself (through :func:`require_actor`) rather than the
+    main script, so it is there however the page is run.
+    """
+    a = actor()
+    with st.sidebar:
+        if a is not None:
+            st.markdown(f"Signed in as **{a.name}**  \nroles: {', '.join(sorted(a.roles))}")
+            if st.button("Sign out", key="sign_out"):
+                st.session_state.clear()
+                st.rerun()
+        st.caption(f"Registry: {mask_url(database_url())}")
+        st.divider()
+        st.caption(CAUTION)
+
+
+def sign_in_form() -> None:
+    """User name and password; on success the actor is kept in the session and the app reruns."""
+    from registry.services.auth import authenticate
+
+    st.title("Specledger")
+    st.write("Calibration sets, model versions and their evidence for the fuel laboratory.")
+    with st.form("sign_in"):
+        name = st.text_input("User name", key="sign_in_name")
+        password = st.text_input("Password", type="password", key="sign_in_password")
+        submitted = st.form_submit_button("Sign in")
+    if submitted:
+        try:
+            with session_scope(engine()) as session:
+                st.session_state[ACTOR_KEY] = authenticate(session, name.strip(), password)
+        except RegistryError as exc:
+            st.error(str(exc))
+            return
+        st.rerun()
+
+
 def require_actor() -> Actor:
-    """The signed-in actor; stops the page if nobody is signed in."""
+    """Draw the sidebar and return the signed-in actor.
+
+    Nobody signed in (e.g. a page opened by its address after signing out): the
+    sign-in form is shown instead of the page.
+    """
+    sidebar()
     a = actor()
     if a is None:
-        st.warning("Sign in first.")
+        sign_in_form()
         st.stop()
     return a
 

@@ -164,20 +164,42 @@ def _in_rows(session: Session, stmt_for, ids: Iterable[int]) -> list:
 
 
 # --------------------------------------------------------------------------- model
-def _signature_doc(lk: _Lookups, s: Signature, mv: ModelVersion, cs_sha: str | None) -> dict:
+def _signature_doc(lk: _Lookups, s: Signature, mv: ModelVersion, cs_sha: str | None,
+                   validation_shas: set[str]) -> dict:
     return {"id": s.id, "signer": lk.user(s.user_id), "meaning": s.meaning, "reason": s.reason,
             "signed_at": _t(s.signed_at), "entity_type": s.entity_type, "entity_id": s.entity_id,
             "signed_parts": s.signed_parts or {}, "signed_sha256": s.signed_sha256,
             "record_sha256": signature_hash(s),
-            "parts_match_current": _parts_match(s, mv, cs_sha)}
+            "parts_match_current": _parts_match(s, mv, cs_sha, validation_shas)}
 
 
-def _parts_match(s: Signature, mv: ModelVersion, cs_sha: str | None) -> bool | None:
-    """Whether the hashes the signature covers still equal the model's current ones."""
+def _parts_match(s: Signature, mv: ModelVersion, cs_sha: str | None,
+                 validation_shas: set[str]) -> bool | None:
+    """Whether what the signature covers still carries the hashes that were signed.
+
+    The parts must hash to the signed SHA-256, and each known part must equal the
+    model's current artifact, calibration-set or validation-record hash (those hashes
+    are themselves checked against the stored content in ``integrity``).
+    """
+    from ..errors import InputError as _InputError
+    from ..lifecycle.signatures import signed_content_hash
+
     parts = s.signed_parts or {}
-    known = {"artifact_sha256": mv.artifact_sha256, "calibration_set_sha256": cs_sha}
-    checked = [parts[k] == v for k, v in known.items() if k in parts and v is not None]
-    return all(checked) if checked else None
+    if not parts or s.entity_type != "model_version" or s.entity_id != mv.id:
+        return None
+    try:
+        if signed_content_hash(parts) != s.signed_sha256:
+            return False
+    except _InputError:
+        return False
+    checks = []
+    if "artifact_sha256" in parts:
+        checks.append(parts["artifact_sha256"] == mv.artifact_sha256)
+    if "calibration_set_sha256" in parts and cs_sha is not None:
+        checks.append(parts["calibration_set_sha256"] == cs_sha)
+    if "validation_record_sha256" in parts:
+        checks.append(parts["validation_record_sha256"] in validation_shas)
+    return all(checks)
 
 
 def _model_doc(session: Session, lk: _Lookups, mv: ModelVersion, cs: CalibrationSet | None,
@@ -197,10 +219,11 @@ def _model_doc(session: Session, lk: _Lookups, mv: ModelVersion, cs: Calibration
         cond = or_(cond, Signature.id.in_(sorted(linked)))
     sigs = {s.id: s for s in session.execute(select(Signature).where(cond)
                                              .order_by(Signature.id)).scalars().all()}
-    cs_sha = cs.sha256 if cs else None
-    sig_docs = {sid: _signature_doc(lk, s, mv, cs_sha) for sid, s in sigs.items()}
     validations = session.execute(select(ValidationRecord).where(
         ValidationRecord.model_version_id == mv.id).order_by(ValidationRecord.id)).scalars().all()
+    cs_sha = cs.sha256 if cs else None
+    shas = {v.sha256 for v in validations}
+    sig_docs = {sid: _signature_doc(lk, s, mv, cs_sha, shas) for sid, s in sigs.items()}
     val_sets = {v.calibration_set_id for v in validations}
     set_names = dict(session.execute(select(CalibrationSet.id, CalibrationSet.name).where(
         CalibrationSet.id.in_(sorted(val_sets)))).all()) if val_sets else {}

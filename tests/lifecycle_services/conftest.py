@@ -1,4 +1,4 @@
-"""A trained, validated registry built once per module; each test gets its own copy.
+"""A trained, validated registry built once per test session; each test gets its own copy.
 
 Built through the services from the synthetic fuel generator (invented data; the
 tests check registry behaviour): 80 referenced gasoline spectra on IR-100, a
@@ -75,7 +75,7 @@ def _build(base: Path) -> dict:
     return {"path": db, "actors": actors, "v1": v1, "v2": v2, "info": info}
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture(scope="session")
 def built(tmp_path_factory):
     return _build(tmp_path_factory.mktemp("lifecycle_base"))
 

@@ -88,5 +88,5 @@ def test_service_lifecycle_follows_the_brief(built, tmp_path):
                 assert {d.instrument_id for d in active} == {serials[i] for i in self.deployed}
 
     run_state_machine_as_test(Machine, settings=settings(
-        max_examples=6, stateful_step_count=6, deadline=None,
+        max_examples=12, stateful_step_count=6, deadline=None,
         suppress_health_check=[HealthCheck.too_slow]))

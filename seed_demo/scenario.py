@@ -1,0 +1,315 @@
+"""The demo scenario: fourteen invented months at two invented fuel labs.
+
+Everything is made up: the sites, people, analyzers and fuels. The history is
+written through the service layer with the registry clock set to each step's
+date, so the audit chain, signatures and due dates are those a real registry
+would hold after such a year:
+
+* months 1–2: a calibration campaign on premium gasoline (RON, MON, density)
+  and B7 diesel (cetane); first calibration sets and model versions, validated,
+  approved with signatures and activated on both analyzers;
+* months 3–9: routine production predicted by the active models, monthly QC
+  on a control material, a winter-grade switch in month 6;
+* month 7: a Kennard–Stone selection run within budget; its samples are
+  engine-tested, a second calibration set and model versions follow and
+  supersede the first;
+* month 10: a new blend component (heavy aromatic reformate) enters part of
+  the premium production, outside the calibration space: predictions are
+  flagged and coverage drift makes the RON and MON models due;
+* month 12: the second analyzer's QC drifts and signals;
+* now: the density model is overdue under its 180-day policy.
+"""
+
+from __future__ import annotations
+
+import shutil
+import tempfile
+from dataclasses import dataclass, field
+from datetime import datetime, timedelta, timezone
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+from registry.clock import frozen_at
+from registry.services import (admin, calibration, intake, lifecycle, models, predictions, qc,
+                               references, revalidation, selection)
+from registry.services.auth import actor_of
+from registry.services.context import Actor
+from registry.spectra.formats import write_csv_spectra
+from registry.spectra.record import SpectrumRecord
+from registry.storage.engine import session_scope
+from seed_demo.synthetic import Analyzer, generate_population, reference_noise
+
+MONTHS = 14
+GASOLINE_GRADE = "PREM95"
+DIESEL_GRADE = "B7"
+
+#: Demo-only logins (printed once by ``specledger demo``). Never use them elsewhere.
+PEOPLE = [
+    # user, full name, roles, password
+    ("rowan", "Rowan Hale", ["admin"], "demo-rowan-2026"),
+    ("imara", "Imara Quist", ["lab_manager"], "demo-imara-2026"),
+    ("teodor", "Teodor Lind", ["analyst"], "demo-teodor-2026"),
+    ("sana", "Sana Okafor", ["analyst"], "demo-sana-2026"),
+    ("greta", "Greta Morwen", ["reviewer"], "demo-greta-2026"),
+    ("jonas", "Jonas Brede", ["auditor"], "demo-jonas-2026"),
+]
+
+SITES = [("Kestrel Bay Terminal", "Europe/Oslo"), ("Alder Ridge Refinery Lab", "America/Chicago")]
+
+#: Two analyzers that differ slightly (band shift, line width, path length).
+ANALYZERS = {
+    "KB-IR-01": (SITES[0][0], Analyzer("KB-IR-01", pathlength_um=50.0)),
+    "AR-IR-02": (SITES[1][0], Analyzer("AR-IR-02", pathlength_um=50.5, shift_cm=0.15,
+                                       resolution_cm=4.3)),
+}
+GASOLINE_PROPERTIES = {"RON": "ASTM D2699", "MON": "ASTM D2700", "DENSITY": "ASTM D4052"}
+DIESEL_PROPERTIES = {"CN": "ASTM D613"}
+QC_MATERIAL = "CONTROL-PREM-A"  # a retained premium gasoline used as control material
+
+
+@dataclass
+class DemoReport:
+    """What the demo built, for the command's summary."""
+
+    seed: int
+    counts: dict = field(default_factory=dict)
+    models: list = field(default_factory=list)
+    due: list = field(default_factory=list)
+    logins: list = field(default_factory=lambda: [(u, r[0], p) for u, _, r, p in PEOPLE])
+    notes: list = field(default_factory=list)
+
+
+class _Builder:
+    def __init__(self, engine, seed: int, workdir: Path, now: datetime,
+                 progress: Callable[[str], None] | None):
+        self.engine = engine
+        self.seed = seed
+        self.rng = np.random.default_rng(seed)
+        self.work = workdir
+        self.start = (now - timedelta(days=int(MONTHS * 30.4))).replace(
+            hour=8, minute=0, second=0, microsecond=0)
+        self.actors: dict[str, Actor] = {}
+        self.passwords = {u: p for u, _, _, p in PEOPLE}
+        self.true: dict[str, dict[str, float]] = {}  # sample id -> true properties
+        self.serial = 0
+        self.say = progress or (lambda _msg: None)
+        self.report = DemoReport(seed=seed)
+
+    # ------------------------------------------------------------------ helpers
+    def at(self, month: float, day: float = 0.0, hour: float = 0.0) -> datetime:
+        return self.start + timedelta(days=(month - 1) * 30.4 + day, hours=hour)
+
+    def act(self, when: datetime, fn, *args, **kwargs):
+        """One user action: its own transaction, at the replayed time."""
+        with frozen_at(when), session_scope(self.engine) as session:
+            return fn(session, *args, **kwargs)
+
+    def next_seed(self) -> int:
+        return int(self.rng.integers(0, 2**31 - 1))
+
+    # ------------------------------------------------------------------ set-up
+    def setup(self) -> None:
+        when = self.at(1)
+        with frozen_at(when), session_scope(self.engine) as s:
+            admin.seed_catalog(s)
+            root_name, full, roles, pw = PEOPLE[0]
+            root = actor_of(admin.add_user(s, None, root_name, roles, pw, full_name=full))
+            self.actors[root_name] = root
+            for name, full, roles, pw in PEOPLE[1:]:
+                self.actors[name] = actor_of(admin.add_user(s, root, name, roles, pw, full_name=full))
+            for site, tz in SITES:
+                admin.add_site(s, root, site, timezone=tz)
+            for serial, (site, _) in ANALYZERS.items():
+                admin.add_instrument(s, root, serial, site=site, spectral_range="4000-650",
+                                     resolution=4.0, pathlength_um=50.0,
+                                     description="FTIR analyzer, transmission cell")
+            admin.add_grade(s, root, GASOLINE_GRADE, name="Premium gasoline 95, E0/E10",
+                            family="gasoline")
+            admin.add_grade(s, root, DIESEL_GRADE, name="Diesel with up to 7 % FAME", family="diesel")
+            revalidation.set_policy(s, root, "DENSITY", GASOLINE_GRADE, 180)
+
+    # ------------------------------------------------------------------ data
+    def spectra_batch(self, month: float, serial: str, family: str, n: int, *,
+                      season: str | None = None, new_share: float = 0.0,
+                      new_fraction: float = 0.0, tag: str = "P") -> list[str]:
+        """Generate, write and import ``n`` spectra measured in ``month`` on ``serial``."""
+        site, analyzer = ANALYZERS[serial]
+        grade = GASOLINE_GRADE if family == "gasoline" else DIESEL_GRADE
+        kw = dict(family=family, seed=self.next_seed(), analyzer=analyzer)
+        if family == "gasoline":
+            kw.update(grade="premium", season=season)
+        n_new = int(round(n * new_fraction))
+        pops = [generate_population(n - n_new, **kw)] if n - n_new else []
+        if n_new:
+            kw["seed"] = self.next_seed()
+            pops.append(generate_population(n_new, new_component_share=new_share, **kw))
+        records, ids = [], []
+        for pop in pops:
+            for i in range(pop.spectra.shape[0]):
+                self.serial += 1
+                sid = f"{serial[:2]}-{tag}{self.serial:05d}"
+                day = float(self.rng.uniform(0, 28))
+                when = self.at(month, day)
+                records.append(SpectrumRecord(sid, pop.axis, pop.spectra[i].astype(np.float32),
+                                              metadata={"grade": grade, "operator": "shift-crew",
+                                                        "acquired_at": when.strftime("%Y-%m-%dT%H:%M:%SZ")}))
+                self.true[sid] = {k: float(v) for k, v in pop.properties.iloc[i].items()}
+                ids.append(sid)
+        path = self.work / f"m{month:04.1f}-{serial}-{tag}-{self.serial:05d}.csv"
+        write_csv_spectra(records, path, metadata_fields=["grade", "operator", "acquired_at"])
+        analyst = self.actors["teodor" if serial == "KB-IR-01" else "sana"]
+        self.act(self.at(month, 28), intake.import_spectra, analyst, [path], instrument=serial)
+        return ids
+
+    def reference_results(self, month: float, ids: list[str], props: dict[str, str],
+                          lab: str = "Alder Ridge engine lab") -> None:
+        """Primary-method results with between-lab noise σ = R/2.77 (domain notes §2)."""
+        lines = ["sample_id,property,method,value,unit,lab,tested_at,operator"]
+        when = self.at(month, 29)
+        for code, method in props.items():
+            truth = np.array([self.true[i][code] for i in ids])
+            noisy = reference_noise(code, truth, self.rng, between_labs=True)
+            unit = "g/mL" if code == "DENSITY" else ""
+            digits = 4 if code == "DENSITY" else 1
+            for sid, v in zip(ids, noisy):
+                lines.append(f"{sid},{code},{method},{v:.{digits}f},{unit},{lab},"
+                             f"{when.strftime('%Y-%m-%dT%H:%MZ')},engine-bench")
+        path = self.work / f"ref-m{month:04.1f}-{len(ids)}-{'-'.join(props)}.csv"
+        path.write_text("\n".join(lines) + "\n")
+        self.act(when + timedelta(hours=2), references.import_references, self.actors["teodor"], path)
+
+    # ------------------------------------------------------------------ models
+    def model_generation(self, month: float, prop: str, grade: str, generation: int,
+                         parent: str | None) -> str:
+        name = f"{prop}-{grade}-G{generation}"
+        mgr, author, reviewer = self.actors["imara"], self.actors["teodor"], self.actors["greta"]
+        self.act(self.at(month, 2), calibration.create_calibration_set, mgr, name,
+                 property_code=prop, grade_code=grade, all_referenced=True,
+                 validation="duplex:0.25", description=f"generation {generation} for {prop}")
+        mv = self.act(self.at(month, 3), models.train_model_version, author, name,
+                      max_components=15, parent=parent)
+        label = mv.label
+        rec = self.act(self.at(month, 4), models.validate_model, reviewer, label)
+        if not rec.passed:
+            self.report.notes.append(f"{label} failed validation: {'; '.join(rec.reasons)}")
+            return label
+        self.act(self.at(month, 5), lifecycle.submit_model, author, label,
+                 reason="calibration and validation complete")
+        self.act(self.at(month, 7), lifecycle.approve_model, reviewer, label,
+                 password=self.passwords["greta"],
+                 reason="validation statistics within acceptance criteria")
+        serials = list(ANALYZERS) if grade == GASOLINE_GRADE else ["AR-IR-02"]
+        for k, serial in enumerate(serials):
+            self.act(self.at(month, 8, hour=k), lifecycle.activate_model, mgr, label,
+                     instrument=serial, password=self.passwords["imara"],
+                     reason="deployment after approval")
+        return label
+
+    def predict_month(self, month: float, ids_by_serial: dict[str, list[str]],
+                      labels: dict[str, str]) -> None:
+        """The analyst predicts every production spectrum of the month with the active models."""
+        from sqlmodel import select
+
+        from registry.storage.models import Sample, Spectrum
+
+        with session_scope(self.engine) as s:
+            spec = {}
+            for serial, ids in ids_by_serial.items():
+                rows = s.exec(select(Spectrum.id, Sample.external_id)
+                              .join(Sample, Sample.id == Spectrum.sample_id)
+                              .where(Sample.external_id.in_(ids))).all()
+                spec[serial] = [r[0] for r in rows]
+        for serial, spectrum_ids in spec.items():
+            analyst = self.actors["teodor" if serial == "KB-IR-01" else "sana"]
+            for prop, label in labels.items():
+                if spectrum_ids:
+                    self.act(self.at(month, 28, hour=6), predictions.predict, analyst, label,
+                             spectrum_ids=spectrum_ids)
+
+    def qc_month(self, month: float, drift: float = 0.0) -> None:
+        """Four QC runs per analyzer: the control material's RON as predicted on the day."""
+        for serial in ANALYZERS:
+            shift = drift if serial == "AR-IR-02" else 0.0
+            for week in range(4):
+                # Late in the month the drift has fully developed.
+                value = 95.3 + float(self.rng.normal(0, 0.12)) + shift * (week + 1) / 4
+                self.act(self.at(month, 3 + 7 * week, hour=7), qc.add_qc_result,
+                         self.actors["teodor" if serial == "KB-IR-01" else "sana"],
+                         instrument=serial, material=QC_MATERIAL, value=round(value, 2),
+                         known_value=95.3 if (month == 3 and week == 0) else None,
+                         property_code="RON", grade_code=GASOLINE_GRADE)
+
+    # ------------------------------------------------------------------ story
+    def run(self) -> DemoReport:
+        self.say("setting up sites, analyzers, people and policies")
+        self.setup()
+        self.say("months 1-2: calibration campaign")
+        cal_g = []
+        for m, season in ((1, "summer"), (2, "winter")):
+            for serial in ANALYZERS:
+                cal_g += self.spectra_batch(m, serial, "gasoline", 55, season=season, tag="C")
+        cal_d = self.spectra_batch(1, "AR-IR-02", "diesel", 96, tag="D")
+        self.reference_results(2, cal_g, GASOLINE_PROPERTIES)
+        self.reference_results(2, cal_d, DIESEL_PROPERTIES)
+        labels = {}
+        for prop in GASOLINE_PROPERTIES:
+            labels[prop] = self.model_generation(2.5, prop, GASOLINE_GRADE, 1, None)
+        diesel_label = self.model_generation(2.5, "CN", DIESEL_GRADE, 1, None)
+
+        pool: list[str] = []
+        for m in range(3, MONTHS + 1):
+            self.say(f"month {m}: production, predictions and QC")
+            season = "summer" if m < 6 or m > 12 else "winter"
+            new_fraction = 0.35 if m >= 10 else 0.0
+            batch = {}
+            for serial in ANALYZERS:
+                batch[serial] = self.spectra_batch(m, serial, "gasoline", 45, season=season,
+                                                   new_share=0.12, new_fraction=new_fraction)
+            pool += batch["KB-IR-01"] + batch["AR-IR-02"]
+            diesel_ids = self.spectra_batch(m, "AR-IR-02", "diesel", 12, tag="D")
+            if m == 3:
+                self.qc_month(m)
+            else:
+                self.qc_month(m, drift=1.2 if m >= 12 else 0.0)
+            self.predict_month(m, batch, labels)
+            self.predict_month(m, {"AR-IR-02": diesel_ids}, {"CN": diesel_label})
+            if m == 7:
+                self.say("month 7: selection run, engine tests, second model generation")
+                run = self.act(self.at(7, 10), selection.run_selection, self.actors["imara"],
+                               property_codes=["RON", "MON"], grade=GASOLINE_GRADE,
+                               method="kennard-stone", budget=6000.0)
+                picked = [p["sample_id"] for p in run.rows]
+                self.reference_results(7.5, picked, GASOLINE_PROPERTIES)
+                extra = [i for i in pool if i not in set(picked)][::9][:30]
+                self.reference_results(7.5, extra, GASOLINE_PROPERTIES)
+                self.reference_results(7.5, diesel_ids, DIESEL_PROPERTIES)
+                for prop in GASOLINE_PROPERTIES:
+                    labels[prop] = self.model_generation(8, prop, GASOLINE_GRADE, 2, labels[prop])
+                diesel_label = self.model_generation(8, "CN", DIESEL_GRADE, 2, diesel_label)
+        self.report.models = list(labels.values()) + [diesel_label]
+        return self.report
+
+
+def build_demo(engine, *, seed: int = 7, now: datetime | None = None,
+               progress: Callable[[str], None] | None = None) -> DemoReport:
+    """Write the whole demo history into an empty, migrated registry."""
+    now = now or datetime.now(timezone.utc)
+    work = Path(tempfile.mkdtemp(prefix="specledger-demo-"))
+    try:
+        builder = _Builder(engine, seed, work, now, progress)
+        report = builder.run()
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
+    from registry.services.status import registry_status
+    from registry.storage.models import RegistryMeta
+
+    with session_scope(engine) as s:
+        s.add(RegistryMeta(key="demo_seed", value=str(seed)))
+        s.add(RegistryMeta(key="demo_built_for", value=now.strftime("%Y-%m-%d")))
+    with session_scope(engine) as s:
+        report.counts = registry_status(s, str(engine.url))["counts"]
+        due = revalidation.due_list(s, builder.actors["jonas"])
+    report.due = due
+    return report

@@ -1,0 +1,193 @@
+"""The Streamlit front end driven through its widgets (AppTest) on a registry with a model in service.
+
+What each page shows is compared with what the services return for the same
+registry, and numbers drawn on charts with independent computations (sources
+named beside each check).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from registry.services import models, qc, selection, views
+from registry.storage.engine import make_engine, session_scope
+from tests.factories import write_population_csv
+from seed_demo.synthetic import generate_population
+from tests.ui.helpers import PAGES, array, frame, open_page, plotly_specs, signed_in, texts
+from ui.common import CAUTION
+
+
+def service(reg, fn, *args, role="auditor", **kw):
+    engine = make_engine(reg.url)
+    try:
+        with session_scope(engine) as s:
+            return fn(s, reg.actors[role], *args, **kw)
+    finally:
+        engine.dispose()
+
+
+def sidebar_captions(at) -> list[str]:
+    return [c.value for c in at.sidebar.caption]
+
+
+def test_wrong_password_shows_an_error_and_no_page(ui_reg):
+    at = signed_in("analyst", password="not-the-password")
+    assert not at.exception
+    assert any("authentication failed" in e.value for e in at.error)
+    assert [t.value for t in at.title] == ["Specledger"]  # still the sign-in page
+    assert not at.dataframe and not at.get("plotly_chart")
+    with pytest.raises(ValueError):  # the pages are not even registered before sign-in
+        at.switch_page("pages/overview.py")
+    assert CAUTION in sidebar_captions(at)
+
+
+@pytest.mark.parametrize("page", PAGES)
+def test_every_page_renders_with_the_caution_and_no_error(ui_reg, page):
+    at = open_page(signed_in("lab_manager"), page)
+    assert not at.exception, [e.value for e in at.exception]
+    assert not at.error, [e.value for e in at.error]
+    assert CAUTION in sidebar_captions(at)
+    assert "lena" in at.sidebar.markdown[0].value
+
+
+def test_sign_out_returns_to_the_sign_in_form(ui_reg):
+    at = signed_in("reviewer")
+    at.button(key="sign_out").click().run()
+    assert [t.value for t in at.title] == ["Specledger"]
+    assert at.text_input(key="sign_in_name").value == ""
+
+
+def test_models_page_lists_the_model_and_draws_its_cv_curve(ui_reg):
+    at = open_page(signed_in("auditor"), "models")
+    table = frame(at, "RMSECV")
+    assert ui_reg.label in table["label"].tolist()
+    detail = service(ui_reg, models.model_detail, ui_reg.label)
+    spec = plotly_specs(at)[0]
+    curve, chosen = spec["data"][0], spec["data"][1]
+    # the curve is the stored RMSECV per component count, A = 1..max
+    assert array(curve["x"]).tolist() == list(range(1, len(detail["cv"]["rmsecv"]) + 1))
+    np.testing.assert_allclose(array(curve["y"]), detail["cv"]["rmsecv"])
+    assert array(chosen["x"]).tolist() == [detail["components"]]
+    np.testing.assert_allclose(array(chosen["y"]), [detail["cv"]["rmsecv"][detail["components"] - 1]])
+    # an auditor changes nothing: no lifecycle form is offered
+    assert not at.form_submit_button
+    assert "active" in frame(at, "signature")["to"].tolist()
+
+
+def test_a_signature_action_asks_for_the_password_again(ui_reg):
+    at = open_page(signed_in("lab_manager"), "models")
+    at.text_input(key="act_retire_reason").input("replaced by a new method")
+    at.text_input(key="act_retire_password").input("wrong-password")
+    at.form_submit_button(key="FormSubmitter:act_retire-Sign: retire").click().run()
+    assert any("signature refused" in e.value for e in at.error)
+    assert service(ui_reg, models.model_detail, ui_reg.label)["state"] == "active"
+    at.text_input(key="act_retire_password").input("test-password-1")
+    at.form_submit_button(key="FormSubmitter:act_retire-Sign: retire").click().run()
+    assert not at.error
+    assert any("retire signed" in s.value for s in at.success)
+    assert service(ui_reg, models.model_detail, ui_reg.label)["state"] == "retired"
+
+
+def test_coverage_page_plots_calibration_and_recent_points(ui_reg):
+    at = open_page(signed_in("reviewer"), "coverage")
+    cov = service(ui_reg, views.coverage_map, "RON", "PREM95")
+    scatter, weekly = plotly_specs(at)
+    by_name = {t["name"]: t for t in scatter["data"]}
+    assert set(by_name) == {"calibration", "recent, inside", "recent, outside"}
+    cal_x = array(by_name["calibration"]["x"])
+    assert cal_x.size == cov["counts"]["calibration"]
+    np.testing.assert_allclose(cal_x, cov["calibration"]["scores"][:, 0])
+    n_in, n_out = (array(by_name[k]["x"]).size for k in ("recent, inside", "recent, outside"))
+    assert (n_in + n_out, n_out) == (cov["counts"]["recent"], cov["counts"]["outside"])
+    assert n_in > 0 and cov["counts"]["calibration"] > 0
+    # weekly shares are outside/n of each week, drawn in percent
+    shares = [100 * w["outside"] / w["n"] for w in cov["weekly"]]
+    np.testing.assert_allclose(array(weekly["data"][0]["y"]), shares)
+
+
+def test_send_list_picks_what_the_budget_buys_and_offers_the_csv(ui_reg):
+    at = open_page(signed_in("lab_manager"), "send_list")
+    at.number_input(key="sel_amount").set_value(3000.0)
+    at.form_submit_button[0].click().run()
+    assert not at.error, [e.value for e in at.error]
+    rows = frame(at, "cumulative_cost")
+    cost = next(m["cost"] for m in service(ui_reg, views.catalog)["methods"] if m["property"] == "RON")
+    # a budget buys whole samples in rank order (README tour: --budget)
+    assert len(rows) == int(3000 // cost) and len(rows) * cost <= 3000
+    assert rows["rank"].tolist() == list(range(1, len(rows) + 1))
+    assert all(isinstance(r, str) and r for r in rows["reason"])
+    assert "calibration space" in texts(at)
+    csv_text = at.download_button(key="sel_download").proto  # present once a run is shown
+    assert csv_text is not None
+    runs = service(ui_reg, selection.list_runs)
+    assert len(runs) == 1
+
+
+def test_send_list_is_offered_to_lab_managers_only(ui_reg):
+    at = open_page(signed_in("analyst"), "send_list")
+    assert not at.form_submit_button
+    assert any("lab manager" in i.value for i in at.info)
+
+
+def test_qc_page_draws_three_charts_with_limits_from_the_moving_range(ui_reg):
+    at = open_page(signed_in("analyst"), "qc")
+    specs = plotly_specs(at)
+    assert len(specs) == 3
+    doc = service(ui_reg, qc.qc_chart, instrument="IR-100", material="CHECK-95", property_code="RON")
+    values = np.array(doc["chart"]["value"])
+    result = specs[0]["data"][0]
+    np.testing.assert_allclose(array(result["y"]), values)
+    # ASTM D6299 / NIST e-Handbook individuals chart (domain notes §6): limits at
+    # x̄ ± 3·MR̄/d₂ with d₂ = 1.128 for moving ranges of span 2, baseline = all 20 results here
+    mr_bar = np.mean(np.abs(np.diff(values)))
+    upper = next(t for t in specs[0]["data"] if t["name"] == "upper limit")
+    assert array(upper["y"])[0] == pytest.approx(values.mean() + 3 * mr_bar / 1.128, rel=1e-3)
+    names = [t["name"] for t in specs[2]["data"]]
+    assert names[:4] == ["EWMA", "centre line", "upper limit", "lower limit"]
+
+
+def test_due_page_lists_the_model_in_service(ui_reg):
+    at = open_page(signed_in("auditor"), "due")
+    table = frame(at, "days left")
+    assert table["model"].tolist() == [ui_reg.label]
+    assert not table["overdue"].iloc[0]
+
+
+def test_trace_page_shows_the_trace_and_offers_the_html(ui_reg):
+    at = open_page(signed_in("auditor"), "trace")
+    pid = ui_reg.prediction_ids[0]
+    at.number_input(key="trace_id").set_value(pid)
+    at.form_submit_button[0].click().run()
+    assert not at.error
+    assert f"Trace of prediction {pid}" in at.code[0].value
+    assert at.download_button(key="trace_download").proto.label.startswith("Download")
+
+
+def test_trace_refused_for_an_analyst_is_an_error_not_a_traceback(ui_reg):
+    at = open_page(signed_in("analyst"), "trace")
+    at.form_submit_button[0].click().run()
+    assert not at.exception
+    assert any("may not trace records" in e.value for e in at.error)
+
+
+def test_import_stores_uploaded_spectra_and_lists_every_rejected_line(ui_reg, tmp_path):
+    pop = generate_population(4, family="gasoline", seed=99)
+    path = tmp_path / "new.csv"
+    write_population_csv(path, pop, "NEW", "PREM95")
+    at = open_page(signed_in("analyst"), "imports")
+    at.file_uploader(key="imp_spectra_files").upload("new.csv", path.read_bytes(), "text/csv")
+    at.form_submit_button[0].click().run()
+    assert not at.error, [e.value for e in at.error]
+    assert any(s.value.startswith("4 spectra imported") for s in at.success)
+
+    bad = ("sample_id,property,method,value,unit,lab,tested_at\n"
+           "NEW0000,RON,ASTM D2699,abc,,Lab A,2027-02-01T10:00\n"
+           "NEW0001,RON,ASTM D2699,95.1,,Lab A,2027-02-01T10:00\n"
+           "NEW0002,RON,ASTM D2699,,,Lab A,2027-02-01T10:00\n")
+    at.file_uploader(key="imp_ref_file").upload("ron.csv", bad.encode(), "text/csv")
+    at.form_submit_button[1].click().run()
+    assert not at.exception
+    assert len(at.error) == 1 and "nothing of this" in at.error[0].value
+    listed = at.code[0].value.splitlines()
+    assert len(listed) == 2 and "line 2" in listed[0] and "line 4" in listed[1]
