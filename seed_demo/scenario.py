@@ -79,12 +79,15 @@ class DemoReport:
     due: list = field(default_factory=list)
     logins: list = field(default_factory=lambda: [(u, r[0], p) for u, _, r, p in PEOPLE])
     notes: list = field(default_factory=list)
+    start: datetime | None = None
+    new_component_samples: list = field(default_factory=list)
 
 
 class _Builder:
     def __init__(self, engine, seed: int, workdir: Path, now: datetime,
-                 progress: Callable[[str], None] | None):
+                 progress: Callable[[str], None] | None, months: int = MONTHS):
         self.engine = engine
+        self.months = months
         self.seed = seed
         self.rng = np.random.default_rng(seed)
         self.work = workdir
@@ -95,7 +98,7 @@ class _Builder:
         self.true: dict[str, dict[str, float]] = {}  # sample id -> true properties
         self.serial = 0
         self.say = progress or (lambda _msg: None)
-        self.report = DemoReport(seed=seed)
+        self.report = DemoReport(seed=seed, start=self.start)
 
     # ------------------------------------------------------------------ helpers
     def at(self, month: float, day: float = 0.0, hour: float = 0.0) -> datetime:
@@ -146,7 +149,8 @@ class _Builder:
             kw["seed"] = self.next_seed()
             pops.append(generate_population(n_new, new_component_share=new_share, **kw))
         records, ids = [], []
-        for pop in pops:
+        for k, pop in enumerate(pops):
+            is_new = n_new > 0 and k == len(pops) - 1
             for i in range(pop.spectra.shape[0]):
                 self.serial += 1
                 sid = f"{serial[:2]}-{tag}{self.serial:05d}"
@@ -155,8 +159,10 @@ class _Builder:
                 records.append(SpectrumRecord(sid, pop.axis, pop.spectra[i].astype(np.float32),
                                               metadata={"grade": grade, "operator": "shift-crew",
                                                         "acquired_at": when.strftime("%Y-%m-%dT%H:%M:%SZ")}))
-                self.true[sid] = {k: float(v) for k, v in pop.properties.iloc[i].items()}
+                self.true[sid] = {c: float(v) for c, v in pop.properties.iloc[i].items()}
                 ids.append(sid)
+                if is_new:
+                    self.report.new_component_samples.append(sid)
         path = self.work / f"m{month:04.1f}-{serial}-{tag}-{self.serial:05d}.csv"
         write_csv_spectra(records, path, metadata_fields=["grade", "operator", "acquired_at"])
         analyst = self.actors["teodor" if serial == "KB-IR-01" else "sana"]
@@ -259,16 +265,16 @@ class _Builder:
         diesel_label = self.model_generation(2.5, "CN", DIESEL_GRADE, 1, None)
 
         pool: list[str] = []
-        for m in range(3, MONTHS + 1):
+        for m in range(3, self.months + 1):
             self.say(f"month {m}: production, predictions and QC")
             season = "summer" if m < 6 or m > 12 else "winter"
             new_fraction = 0.35 if m >= 10 else 0.0
             batch = {}
             for serial in ANALYZERS:
-                batch[serial] = self.spectra_batch(m, serial, "gasoline", 45, season=season,
+                batch[serial] = self.spectra_batch(m, serial, "gasoline", 62, season=season,
                                                    new_share=0.12, new_fraction=new_fraction)
             pool += batch["KB-IR-01"] + batch["AR-IR-02"]
-            diesel_ids = self.spectra_batch(m, "AR-IR-02", "diesel", 12, tag="D")
+            diesel_ids = self.spectra_batch(m, "AR-IR-02", "diesel", 18, tag="D")
             if m == 3:
                 self.qc_month(m)
             else:
@@ -293,12 +299,18 @@ class _Builder:
 
 
 def build_demo(engine, *, seed: int = 7, now: datetime | None = None,
-               progress: Callable[[str], None] | None = None) -> DemoReport:
-    """Write the whole demo history into an empty, migrated registry."""
+               progress: Callable[[str], None] | None = None, months: int = MONTHS) -> DemoReport:
+    """Write the demo history into an empty, migrated registry.
+
+    ``now`` anchors the end of the timeline (default: today), ``months`` stops the
+    story early (tests use a short story; the timeline keeps its 14-month start).
+    """
+    if not 2 <= months <= MONTHS:
+        raise ValueError(f"months must be between 2 and {MONTHS}")
     now = now or datetime.now(timezone.utc)
     work = Path(tempfile.mkdtemp(prefix="specledger-demo-"))
     try:
-        builder = _Builder(engine, seed, work, now, progress)
+        builder = _Builder(engine, seed, work, now, progress, months)
         report = builder.run()
     finally:
         shutil.rmtree(work, ignore_errors=True)

@@ -81,6 +81,7 @@ def predict(session: Session, actor: Actor, label: str, *, spectrum_ids: list[in
     for sp in spectra:
         by_axis.setdefault(sp.axis_id, []).append(sp)
     rows: list[tuple[Spectrum, float, dict, list[str]]] = []
+    standing: dict[int, list[str]] = {}
     for axis_id, group in by_axis.items():
         X, axis_row = load_matrix(session, [s.id for s in group])
         x = axis_values(axis_row)
@@ -90,7 +91,9 @@ def predict(session: Session, actor: Actor, label: str, *, spectrum_ids: list[in
             X = resample(X, x, trained.axis, kind="linear")
         y, diag = trained.predict(X)
         for k, (sp, rec) in enumerate(zip(group, diag.records())):
-            flags = list(rec["flags"]) + standing_flags(session, mv, sp.instrument_id)
+            if sp.instrument_id not in standing:  # once per instrument, not per spectrum
+                standing[sp.instrument_id] = standing_flags(session, mv, sp.instrument_id)
+            flags = list(rec["flags"]) + standing[sp.instrument_id]
             rows.append((sp, float(y[k]), rec, flags))
     now = utcnow()
     for sp, value, rec, flags in rows:

@@ -18,15 +18,11 @@ import pytest
 from sqlmodel import select
 
 from registry.lifecycle.permissions import Action
-from registry.lifecycle.signatures import signed_content_hash
-from registry.lineage.content_hashes import signature_hash
-from registry.services import calibration, lifecycle, models, predictions, references, selection
+from registry.services import (calibration, intake, lifecycle, models, predictions, references,
+                               selection)
 from registry.services.context import audit
-from registry.services import intake
 from registry.storage.engine import make_engine, session_scope, upgrade
-from registry.storage.models import (CalibrationSet, Deployment, Instrument, ModelStateChange,
-                                     ModelVersion, QCResult, RevalidationTrigger, Sample,
-                                     SelectionPick, SelectionRun, Signature, ValidationRecord)
+from registry.storage.models import Instrument, QCResult, RevalidationTrigger
 from registry.storage.types import utcnow
 from seed_demo.synthetic import generate_population, reference_noise
 from tests.conftest import PASSWORD, fresh_pg_database, populate_basics

@@ -108,6 +108,8 @@ def test_coverage_page_plots_calibration_and_recent_points(ui_reg):
 
 def test_send_list_picks_what_the_budget_buys_and_offers_the_csv(ui_reg):
     at = open_page(signed_in("lab_manager"), "send_list")
+    assert at.multiselect(key="sel_properties").value == ["RON"]  # the property in service first
+    at.selectbox(key="sel_method").set_value("kennard-stone")
     at.number_input(key="sel_amount").set_value(3000.0)
     at.form_submit_button[0].click().run()
     assert not at.error, [e.value for e in at.error]

@@ -6,6 +6,7 @@ import pandas as pd
 import streamlit as st
 
 from registry.lifecycle.permissions import Action
+from registry.services import models as model_svc
 from registry.services import views
 from ui.common import FAILED, call, may, not_available, optional_service, require_actor
 
@@ -25,6 +26,12 @@ if cat is FAILED:
     st.stop()
 props = [p["code"] for p in cat["properties"]]
 grades = [g["code"] for g in cat["grades"]]
+# Offer first the property and grade of the newest model in service (the usual question).
+usable = call(model_svc.list_models)
+usable = [r for r in (usable or []) if r["state"] in ("active", "approved", "validated") and r["grade"]]
+if usable:
+    props.sort(key=lambda p: p != usable[-1]["property"])
+    grades.sort(key=lambda g: g != usable[-1]["grade"])
 costs = {}
 for m in cat["methods"]:
     if m["active"]:
