@@ -30,6 +30,12 @@ DEFAULT_RECIPE: list[dict[str, Any]] = [
 ]
 
 
+# Prediction-time limits (Hotelling T², Q residual) at 99 %: with four checks per spectrum,
+# 95 % limits would flag about one in six routine spectra by chance (domain notes §4 allow
+# 95 % or 99 %).
+DIAGNOSTICS_CONFIDENCE = 0.99
+
+
 def get_model(session: Session, label: str) -> ModelVersion:
     mv = session.exec(select(ModelVersion).where(ModelVersion.label == label)).first()
     if mv is None and label.isdigit():
@@ -105,6 +111,7 @@ def train_model_version(session: Session, actor: Actor, calset_name: str, *,
     trained = train_model(X, y, axis, recipe, max_components=max_components, folds=folds,
                           groups=groups, n_components=n_components, selection=selection,
                           method=cv_method, random_state=random_state,
+                          confidence=DIAGNOSTICS_CONFIDENCE,
                           metadata={"property": prop.code, "unit": prop.unit,
                                     "grade": grade.code if grade else None,
                                     "calibration_set": cs.name, "calibration_set_sha256": cs.sha256})

@@ -23,7 +23,7 @@ if rows is not FAILED:
     else:
         overdue = sum(1 for r in rows if r["overdue"])
         if overdue:
-            st.error(f"{overdue} model version(s) overdue: their predictions carry the overdue flag.")
+            st.warning(f"{overdue} model version(s) overdue: their predictions carry the overdue flag.")
         rows = sorted(rows, key=lambda r: (not r["overdue"], r["due_at"]))
         st.dataframe(pd.DataFrame([{
             "model": r["label"], "property": r["property"], "grade": r["grade"], "state": r["state"],

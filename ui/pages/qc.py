@@ -39,7 +39,7 @@ c[1].metric("Results", doc["n"])
 c[2].metric("Known value", f"{doc['known_value']:g}" if doc["known_value"] is not None else "")
 c[3].metric("Mean − known", f"{doc['bias_vs_known']:+.3g}" if doc["bias_vs_known"] is not None else "")
 if doc["open_triggers"]:
-    st.error(f"{len(doc['open_triggers'])} open QC signal(s): predictions of {doc['model']} on "
+    st.warning(f"{len(doc['open_triggers'])} open QC signal(s): predictions of {doc['model']} on "
              f"{doc['instrument']} carry the qc_signal flag until the cause is found and cleared.")
 
 chart = doc["chart"]
