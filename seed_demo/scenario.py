@@ -132,6 +132,9 @@ class _Builder:
                             family="gasoline")
             admin.add_grade(s, root, DIESEL_GRADE, name="Diesel with up to 7 % FAME", family="diesel")
             revalidation.set_policy(s, root, "DENSITY", GASOLINE_GRADE, 180)
+            # Few diesel spectra a month: a single odd batch should not trip the drift rule.
+            revalidation.set_policy(s, root, "CN", DIESEL_GRADE, 365, coverage_window_days=60,
+                                    coverage_threshold=0.3)
 
     # ------------------------------------------------------------------ data
     def spectra_batch(self, month: float, serial: str, family: str, n: int, *,
