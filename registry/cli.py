@@ -17,6 +17,7 @@ app.add_typer(admin.user_app, name="user")
 app.add_typer(admin.site_app, name="site")
 app.add_typer(admin.instrument_app, name="instrument")
 app.add_typer(admin.grade_app, name="grade")
+app.add_typer(admin.property_app, name="property")
 
 
 def _register_optional() -> None:

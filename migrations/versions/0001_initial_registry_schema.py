@@ -49,6 +49,7 @@ def upgrade() -> None:
     sa.Column('upper_limit', sa.Float(), nullable=True),
     sa.Column('decimals', sa.Integer(), nullable=False),
     sa.Column('source', sa.Text(), nullable=False),
+    sa.Column('acceptance', sa.JSON(), nullable=False),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_property')),
     sa.UniqueConstraint('code', name=op.f('uq_property_code'))
     )

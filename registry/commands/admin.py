@@ -140,3 +140,47 @@ def grade_add(code: str, name: Annotated[str, typer.Option("--name")] = "",
     with transaction(db) as session:
         grade = svc.add_grade(session, login(session, as_user), code, name=name, family=family)
     emit(fmt, grade, f"grade {grade.code} added")
+
+
+property_app = typer.Typer(help="Fuel properties, their limits and acceptance criteria.",
+                           no_args_is_help=True)
+
+
+@property_app.command("list")
+@handle_errors
+def property_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+    """Properties with units, plausibility limits and validation acceptance criteria."""
+    from ..services.properties import list_properties
+
+    with transaction(db) as session:
+        rows = list_properties(session, login(session, as_user))
+    emit(fmt, rows, lambda: table([{**r, "acceptance": ", ".join(
+        f"{k}={v}" for k, v in r["overrides"].items()) or "(defaults)"} for r in rows],
+        ["code", "name", "unit", "lower_limit", "upper_limit", "acceptance"]))
+
+
+@property_app.command("edit")
+@handle_errors
+def property_edit(code: str, name: Annotated[Optional[str], typer.Option("--name")] = None,
+                  unit: Annotated[Optional[str], typer.Option("--unit")] = None,
+                  lower: Annotated[Optional[float], typer.Option("--lower")] = None,
+                  upper: Annotated[Optional[float], typer.Option("--upper")] = None,
+                  criterion: Annotated[Optional[list[str]], typer.Option(
+                      "--criterion", help="NAME=VALUE acceptance override, e.g. "
+                                          "max_sep_over_reproducibility=0.8; repeat.")] = None,
+                  db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+    """Edit a property (admin)."""
+    from ..services.properties import edit_property
+
+    overrides = None
+    if criterion:
+        overrides = {}
+        for item in criterion:
+            key, sep, value = item.partition("=")
+            if not sep:
+                raise InputError(f"--criterion {item!r} must be NAME=VALUE", field="--criterion")
+            overrides[key.strip()] = value.strip()
+    with transaction(db) as session:
+        prop = edit_property(session, login(session, as_user), code, name=name, unit=unit,
+                             lower_limit=lower, upper_limit=upper, acceptance=overrides)
+    emit(fmt, prop, f"property {prop.code} updated")

@@ -184,7 +184,10 @@ def validate_model(session: Session, actor: Actor, label: str, *, calset_name: s
     stats = validation_statistics(y_ref, y_pred, n_components=None, reproducibility=R)
     stats_json = stats.to_json()
     stats_json["n_components"] = mv.n_components
-    criteria = criteria or AcceptanceCriteria()
+    if criteria is None:
+        from .properties import acceptance_for
+
+        criteria = acceptance_for(prop)
     passed, reasons = verdict(_with_components(stats, mv.n_components), criteria)
     rec = ValidationRecord(model_version_id=mv.id, calibration_set_id=cs.id, user_id=actor.id,
                            kind=kind, n=stats.n, bias=stats.bias, sdv=stats.sdv, sep=stats.sep,

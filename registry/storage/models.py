@@ -112,6 +112,9 @@ class Property(SQLModel, table=True):
     upper_limit: Optional[float] = None
     decimals: int = 2
     source: str = Field(default="", sa_type=LongText)
+    # Overrides of the validation acceptance criteria for this property
+    # (field names of registry.chemometrics.AcceptanceCriteria); empty = defaults.
+    acceptance: dict = _json()
 
 
 class ReferenceMethod(SQLModel, table=True):

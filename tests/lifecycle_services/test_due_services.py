@@ -17,7 +17,7 @@ from sqlmodel import select
 from registry.errors import InputError, PermissionDenied, StateError
 from registry.services import admin, models, predictions, revalidation
 from registry.storage.engine import session_scope
-from registry.storage.models import ModelVersion, ReferenceMethod, RevalidationTrigger
+from registry.storage.models import ModelVersion, RevalidationTrigger
 from seed_demo.synthetic import generate_population
 from tests.factories import write_population_csv
 from tests.lifecycle_services import steps

@@ -9,20 +9,19 @@ from __future__ import annotations
 
 import hashlib
 import json
-from datetime import timezone
 
 import pytest
 from sqlalchemy import text
 from sqlmodel import select
 
-from registry.errors import AuthenticationError, InputError, PermissionDenied, StateError
+from registry.errors import (AuthenticationError, InputError, IntegrityError, PermissionDenied,
+                             StateError)
 from registry.lineage.verify import verify_registry
 from registry.services import admin, intake, lifecycle
-from registry.services.auth import actor_of
 from registry.services.context import Actor
 from registry.storage.engine import session_scope
 from registry.storage.models import (CalibrationSet, Deployment, ModelStateChange, ModelVersion,
-                                     Signature, User, ValidationRecord)
+                                     Signature, ValidationRecord)
 from seed_demo.synthetic import generate_population
 from tests.conftest import PASSWORD
 from tests.factories import write_population_csv
@@ -240,7 +239,7 @@ def test_signature_breaks_when_signed_content_changes_behind_the_registrys_back(
         rows = lifecycle.model_signatures(s, reg.actors["auditor"], reg.v1)
         assert [r["status"] for r in rows] == ["broken"]
     # Nothing altered may be signed again: activation refuses to sign changed content.
-    with session_scope(reg.engine) as s, pytest.raises(Exception, match="no longer matches"):
+    with session_scope(reg.engine) as s, pytest.raises(IntegrityError, match="no longer matches"):
         lifecycle.activate_model(s, reg.actors["lab_manager"], reg.v1, instrument="IR-100",
                                  password=PASSWORD)
 
