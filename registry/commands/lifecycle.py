@@ -16,6 +16,7 @@ from ..errors import InputError
 from ..services import lifecycle as svc
 from ..services import qc as qc_svc
 from ..services import revalidation as reval_svc
+from ..storage.models import Deployment
 from .common import (AsOpt, DbOpt, FormatOpt, emit, handle_errors, login, read_password, table,
                      transaction)
 from .models import model_app
@@ -49,13 +50,14 @@ def _signed(fn, version: str, fmt: str, db, as_user, verb: str, **kw) -> None:
     with transaction(db) as session:
         actor = login(session, as_user)
         result = fn(session, actor, version, password=_signer_password(actor.name), **kw)
-        sig = result if hasattr(result, "meaning") else svc.get_signature(session, result.signature_id)
+        deployed = isinstance(result, Deployment)
+        sig = svc.get_signature(session, result.signature_id) if deployed else result
         mv = svc.get_model(session, version)
         doc = {"label": mv.label, "state": mv.state, "signature": {
             "id": sig.id, "signer": actor.name, "meaning": sig.meaning, "reason": sig.reason,
             "signed_at": sig.signed_at, "signed_sha256": sig.signed_sha256,
             "signed_parts": sig.signed_parts}}
-        if not hasattr(result, "meaning"):
+        if deployed:
             doc["deployment_id"] = result.id
     emit(fmt, doc, f"{doc['label']} {verb} (state {doc['state']}); signed by {actor.name} "
                    f"'{sig.meaning}' at {sig.signed_at:%Y-%m-%d %H:%M:%S} UTC, "

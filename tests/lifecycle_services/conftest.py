@@ -46,9 +46,8 @@ class Reg:
                     for name, table in ENTITY_TABLES.items()}
 
 
-def _build(base: Path) -> dict:
-    db = base / "base.db"
-    url = f"sqlite:///{db}"
+def build_registry(url: str, base: Path) -> dict:
+    """Migrate ``url`` and fill it as described in the module docstring."""
     upgrade(url)
     engine = make_engine(url)
     actors = populate_basics(engine)
@@ -72,12 +71,14 @@ def _build(base: Path) -> dict:
             rec = models.validate_model(s, actors[who], label)
             assert rec.passed, rec.reasons  # the rest of the suite needs validated versions
     engine.dispose()
-    return {"path": db, "actors": actors, "v1": v1, "v2": v2, "info": info}
+    return {"actors": actors, "v1": v1, "v2": v2, "info": info}
 
 
 @pytest.fixture(scope="session")
 def built(tmp_path_factory):
-    return _build(tmp_path_factory.mktemp("lifecycle_base"))
+    base = tmp_path_factory.mktemp("lifecycle_base")
+    db = base / "base.db"
+    return {**build_registry(f"sqlite:///{db}", base), "path": db}
 
 
 def copy_db(src: Path, dst: Path) -> None:

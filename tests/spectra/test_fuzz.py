@@ -9,6 +9,7 @@ import tempfile
 from pathlib import Path
 
 import numpy as np
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -143,3 +144,17 @@ def test_csv_arbitrary_bytes(data):
 @given(mutated(VALID_CSV, CSV_ALPHABET))
 def test_csv_mutated_valid_files(text):
     _check_csv(text)
+
+
+def test_ordinate_beyond_float32_is_a_format_error():
+    # Found by the mutation fuzzer above: 12100E46 × YFACTOR 1e-8 is finite in float64 but
+    # overflows the float32 storage type; it must be refused, not stored as inf.
+    from registry.spectra.record import SpectrumRecord
+    from registry.spectra.formats import write_jcamp
+
+    x = np.linspace(600.0, 700.0, 5)
+    text = write_jcamp(SpectrumRecord("F-1", x, np.full(5, 0.5, np.float32)), form="AFFN")
+    lines = ["##YFACTOR=1e40" if ln.startswith("##YFACTOR") else ln for ln in text.splitlines()]
+    with pytest.raises(FormatError, match="float32") as err:
+        read_jcamp(None, text="\n".join(lines) + "\n", file_label="big.jdx")
+    assert err.value.line is not None

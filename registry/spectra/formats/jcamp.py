@@ -482,12 +482,20 @@ class _Reader:
             x, y = normalise_ascending(x, y, file=self.file, line=table.line, field=table.label)
         except InputError as exc:
             raise self.error(exc.message, line=table.line, field=table.label) from None
+        with np.errstate(over="ignore"):
+            y32 = y.astype(np.float32)
+        # Finite in float64 but beyond the float32 range of stored spectra.
+        too_big = np.flatnonzero(~np.isfinite(y32))
+        if too_big.size:
+            raise self.error(f"ordinate of point {too_big[0] + 1} ({y[too_big[0]]:.3g}) is beyond "
+                             "the float32 range of stored spectra", line=table.line,
+                             field=table.label)
         sample = block.lookup(self.sample_label)
         sample_id = sample.text() if sample is not None else ""
         if not sample_id:
             raise self.error(f"no sample id: ##{self.sample_id_field} is missing or empty",
                              line=block.start, field=self.sample_label)
-        return SpectrumRecord(sample_id=sample_id, x=x, y=y.astype(np.float32), x_unit=x_unit,
+        return SpectrumRecord(sample_id=sample_id, x=x, y=y32, x_unit=x_unit,
                               metadata=self.metadata(block), source_file=self.file,
                               source_line=block.start)
 
