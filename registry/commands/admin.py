@@ -11,7 +11,7 @@ from ..errors import InputError
 from ..services import admin as svc
 from ..services.status import registry_status
 from ..storage.engine import get_engine, mask_url, resolve_url, session_scope, upgrade
-from .common import AsOpt, DbOpt, FormatOpt, emit, handle_errors, login, read_password, table, transaction
+from .common import AsOpt, DbOpt, FormatOpt, emit, handle_errors, login, table, transaction
 
 user_app = typer.Typer(help="Users and their roles.", no_args_is_help=True)
 site_app = typer.Typer(help="Laboratory sites.", no_args_is_help=True)

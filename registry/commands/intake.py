@@ -10,7 +10,7 @@ import typer
 from ..services import intake as svc
 from ..services import references as ref_svc
 from ..services.references import ImportRejected
-from .common import AsOpt, DbOpt, FormatOpt, emit, fail, handle_errors, login, transaction
+from .common import AsOpt, DbOpt, FormatOpt, emit, handle_errors, login, transaction
 
 import_app = typer.Typer(help="Bring spectra and reference results into the registry.",
                          no_args_is_help=True)

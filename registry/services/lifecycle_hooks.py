@@ -14,6 +14,12 @@ def on_instrument_event(session: Session, instrument: Instrument, event: Instrum
     deps = session.exec(select(Deployment).where(Deployment.instrument_id == instrument.id,
                                                  Deployment.state == "active")).all()
     for dep in deps:
+        already = session.exec(select(RevalidationTrigger.id).where(
+            RevalidationTrigger.model_version_id == dep.model_version_id,
+            RevalidationTrigger.kind == "instrument_service",
+            RevalidationTrigger.cleared_at == None)).first()  # noqa: E711
+        if already is not None:
+            continue  # one open service trigger per model is enough to make it due
         session.add(RevalidationTrigger(
             model_version_id=dep.model_version_id, kind="instrument_service",
             detail={"instrument": instrument.serial, "event_id": event.id, "kind": event.kind}))

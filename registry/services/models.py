@@ -12,13 +12,13 @@ from sqlmodel import Session, select
 
 from ..catalog import precision_at
 from ..chemometrics import AcceptanceCriteria, TrainedModel, train_model, validation_statistics, verdict
-from ..errors import InputError, NotFoundError, StateError
+from ..errors import InputError, NotFoundError
 from ..lifecycle.permissions import Action
 from ..lineage.content_hashes import artifact_hash, validation_record_hash
 from ..spectra.axes import resample
 from ..storage.models import (CalibrationSet, Grade, ModelStateChange, ModelVersion, Property,
                               ReferenceMethod, SpectralAxis, ValidationRecord)
-from ..storage.spectra_store import axis_values, load_matrix
+from ..storage.spectra_store import axis_values
 from .calibration import calibration_data, get_calset, members_of
 from .context import Actor, audit, authorize
 
@@ -164,8 +164,11 @@ def validate_model(session: Session, actor: Actor, label: str, *, calset_name: s
     if kind not in ("initial", "local", "general"):
         raise InputError("validation kind must be initial, local or general", field="--kind")
     mv = get_model(session, label)
-    if mv.state in ("rejected", "retired", "superseded"):
-        raise StateError(f"model {mv.label} is {mv.state}; a {mv.state} version is not validated again")
+    from ..lifecycle.states import LifecycleAction, check_transition
+
+    # Legal from draft, validated, approved and active (periodic revalidation); not while a
+    # reviewer holds it (in_review) nor after it has ended.
+    check_transition(mv.state, LifecycleAction.VALIDATE, label=f"model {mv.label}")
     cs = get_calset(session, calset_name) if calset_name else session.get(CalibrationSet, mv.calibration_set_id)
     if cs.property_id != mv.property_id:
         raise InputError(f"calibration set {cs.name} is for another property", field="--calset")

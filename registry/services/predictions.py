@@ -18,7 +18,7 @@ from ..errors import InputError, NotFoundError, StateError
 from ..lifecycle.permissions import Action
 from ..lifecycle.revalidation import coverage_drift
 from ..storage.models import (Deployment, Instrument, ModelVersion, Prediction, RevalidationTrigger,
-                              Sample, SpectralAxis, Spectrum)
+                              Sample, Spectrum)
 from ..storage.spectra_store import axis_values, load_matrix
 from ..storage.types import utcnow
 from .context import Actor, audit, authorize

@@ -10,8 +10,6 @@ chunk (peak traced Python allocations printed, compared with the file size).
 
 from __future__ import annotations
 
-import hashlib
-import os
 import sqlite3
 import sys
 import tempfile
