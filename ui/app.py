@@ -14,7 +14,7 @@ if str(ROOT) not in sys.path:  # pages import ``ui.common`` whatever the working
 
 import streamlit as st  # noqa: E402
 
-from ui.common import actor, sidebar, sign_in_form  # noqa: E402
+from ui.common import actor, check_registry, sidebar, sign_in_form  # noqa: E402
 
 PAGES = [
     ("pages/overview.py", "Overview", ":material/dashboard:"),
@@ -34,6 +34,8 @@ def sign_in() -> None:
 
 
 st.set_page_config(page_title="Specledger", layout="wide")
+if not check_registry():
+    st.stop()
 if actor() is None:
     nav = st.navigation([st.Page(sign_in, title="Sign in", url_path="sign-in")])
 else:

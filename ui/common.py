@@ -8,6 +8,8 @@ never as a traceback.
 
 from __future__ import annotations
 
+import logging
+
 import importlib
 from datetime import datetime
 from typing import Any, Callable
@@ -44,6 +46,9 @@ FAILED = _Failed()
 
 def database_url() -> str:
     return resolve_url()
+
+
+log = logging.getLogger("specledger.ui")
 
 
 def engine():
@@ -134,6 +139,28 @@ def call(fn: Callable[..., Any], *args: Any, with_actor: bool = True, **kwargs: 
     except RegistryError as exc:
         show_error(exc)
         return FAILED
+    except Exception as exc:  # never a traceback on the page; the server log keeps it
+        log.exception("unexpected error in %s", getattr(fn, "__name__", fn))
+        st.error(f"Unexpected error ({type(exc).__name__}); nothing was saved. "
+                 "The details are in the server log.")
+        return FAILED
+
+
+def check_registry() -> bool:
+    """Show a clear message and stop when the database is not a current registry."""
+    from registry.services.admin import ensure_known
+
+    try:
+        with session_scope(engine()) as session:
+            ensure_known(session)
+    except RegistryError as exc:
+        st.error(str(exc))
+        return False
+    except Exception as exc:  # e.g. the database cannot be reached
+        log.exception("cannot open the registry")
+        st.error(f"Cannot open the registry at {database_url()!r} ({type(exc).__name__}).")
+        return False
+    return True
 
 
 def optional_service(name: str):

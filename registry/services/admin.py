@@ -222,7 +222,12 @@ def seed_catalog(session: Session) -> int:
 
 def ensure_known(session: Session) -> None:
     """Raise a clear error when the database has no registry schema."""
-    from ..storage.engine import has_schema
+    from ..storage.engine import current_revision, has_schema, head_revision
 
-    if not has_schema(session.get_bind()):
+    bind = session.get_bind()
+    if not has_schema(bind):
         raise RegistryError("this database has no registry schema: run 'specledger init' first")
+    current, head = current_revision(bind), head_revision()
+    if current != head:
+        raise RegistryError(f"this database's schema is at revision {current}, this version of "
+                            f"Specledger expects {head}: run 'specledger init' to upgrade it")
