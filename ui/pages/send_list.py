@@ -7,6 +7,7 @@ import streamlit as st
 
 from registry.lifecycle.permissions import Action
 from registry.services import models as model_svc
+from registry.services import revalidation
 from registry.services import views
 from ui.common import FAILED, call, may, not_available, optional_service, require_actor
 
@@ -26,12 +27,20 @@ if cat is FAILED:
     st.stop()
 props = [p["code"] for p in cat["properties"]]
 grades = [g["code"] for g in cat["grades"]]
-# Offer first the property and grade of the newest model in service (the usual question).
+# Offer first the model that most needs new samples: the first one due for revalidation
+# (overdue first), else the newest model in service.
 usable = call(model_svc.list_models)
 usable = [r for r in (usable or []) if r["state"] in ("active", "approved", "validated") and r["grade"]]
-if usable:
-    props.sort(key=lambda p: p != usable[-1]["property"])
-    grades.sort(key=lambda g: g != usable[-1]["grade"])
+due = call(revalidation.due_list)
+focus = None
+if due and due is not FAILED:
+    labels = {r["label"]: r for r in usable}
+    focus = next((labels[d["label"]] for d in due if d["label"] in labels), None)
+if focus is None and usable:
+    focus = usable[-1]
+if focus is not None:
+    props.sort(key=lambda p: p != focus["property"])
+    grades.sort(key=lambda g: g != focus["grade"])
 costs = {}
 for m in cat["methods"]:
     if m["active"]:
