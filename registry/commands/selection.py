@@ -162,6 +162,16 @@ def selection_show(run: str, db: DbOpt = None, as_user: AsOpt = None,
     emit(fmt, doc, text)
 
 
+@selection_app.command("close")
+@handle_errors
+def selection_close(run: str, reason: Annotated[str, typer.Option("--reason")],
+                    db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+    """Close an open run whose remaining samples will not be tested."""
+    with transaction(db) as session:
+        closed = svc.close_run(session, login(session, as_user), run, reason)
+    emit(fmt, closed, f"selection run {closed.id} closed")
+
+
 def register(app: typer.Typer) -> None:
     app.command("select")(select_command)
     app.add_typer(selection_app, name="selection")

@@ -122,6 +122,7 @@ class _Context:
         self.sites = {s.id: s for s in session.exec(select(Site)).all()}
         self.grades = {g.code: g for g in session.exec(select(Grade)).all()}
         self.samples: dict[tuple[int, str], _SampleRef] = {}
+        self.sample_details: dict[tuple[int, str], tuple[str, str, object]] = {}
         self.created_samples = 0
 
     def _load(self, keys: list[tuple[int, str]]) -> None:
@@ -144,10 +145,14 @@ class _Context:
         to_create = [k for k in wanted if k not in self.samples]
         if to_create:
             now = utcnow()
-            self.session.execute(insert(Sample.__table__), [
-                {"site_id": site_id, "external_id": ext,
-                 "grade_id": wanted[(site_id, ext)].id if wanted[(site_id, ext)] else None,
-                 "batch": "", "source": "", "created_at": now} for site_id, ext in to_create])
+            rows = []
+            for site_id, ext in to_create:
+                batch, source, taken = self.sample_details.get((site_id, ext), ("", "", None))
+                rows.append({"site_id": site_id, "external_id": ext,
+                             "grade_id": wanted[(site_id, ext)].id if wanted[(site_id, ext)] else None,
+                             "batch": batch, "source": source,
+                             "taken_at": taken, "created_at": now})
+            self.session.execute(insert(Sample.__table__), rows)
             self._load(to_create)
             self.created_samples += len(to_create)
         return {k: self.samples[k].id for k in wanted}
@@ -282,6 +287,13 @@ def _prepare(ctx: _Context, batch: Batch, errors: list, seen: set, on_duplicate:
         except InputError as exc:
             errors.append(exc)
             continue
+        taken_at = None
+        if meta.get("taken_at"):
+            try:
+                taken_at = parse_time(str(meta["taken_at"]), tz, field="taken_at", **where)
+            except InputError as exc:
+                errors.append(exc)
+                continue
         if errors:
             continue  # keep validating, but build no rows once anything is wrong
         key = (inst.site_id, sid)
@@ -291,6 +303,8 @@ def _prepare(ctx: _Context, batch: Batch, errors: list, seen: set, on_duplicate:
                                      **where))
             continue
         pending.append((key, grade))
+        ctx.sample_details.setdefault(key, (str(meta.get("batch") or "")[:120],
+                                            str(meta.get("source") or "")[:200], taken_at))
         rows.append({"sample_id": key, "instrument_id": inst.id, "axis_id": axis_row.id,
                      "acquired_at": acquired_at, "data": Y[i].tobytes(), "sha256": digest,
                      "source_file": os.path.basename(batch.file)[:400],

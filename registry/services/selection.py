@@ -810,3 +810,24 @@ def replay_selection(session: Session, actor: Actor, run_id: int | str) -> dict[
     return {"run_id": run.id, "same_pool": res.pool_sha256 == run.pool_sha256,
             "same_picks": res.picked_sample_ids == stored, "pool_sha256": res.pool_sha256,
             "picks": [r["sample_id"] for r in res.rows]}
+
+
+def close_run(session: Session, actor: Actor, run_id: int | str, reason: str) -> SelectionRun:
+    """Close an open run whose remaining samples will not be tested (lab manager).
+
+    Its picks stop holding their samples out of later pools; results that did
+    arrive stay linked to their picks.
+    """
+    authorize(actor, Action.SELECTION_RUN)
+    run = get_run(session, run_id)
+    if run.state != "open":
+        raise InputError(f"selection run {run.id} is {run.state}; only an open run can be closed",
+                         field="RUN")
+    if not (reason or "").strip():
+        raise InputError("a reason is required", field="--reason")
+    run.state = "closed"
+    session.add(run)
+    session.flush()
+    audit(session, actor, "selection_close", entity_type="selection_run", entity_id=run.id,
+          data={"reason": reason})
+    return run

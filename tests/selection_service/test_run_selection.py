@@ -313,3 +313,21 @@ def test_send_list_csv_has_the_promised_columns(sel_registry, tmp_path):
     assert [float(r["cumulative_cost"]) for r in rows] == [500.0, 1000.0, 1500.0]
     assert all(r["reason"] for r in rows)
     assert N_REFERENCED == len(res.calibration_sample_ids)
+
+
+def test_closing_a_run_returns_its_samples_to_the_pool(sel_registry):
+    engine, actors, _, _ = sel_registry
+    first = run(engine, actors["lab_manager"], property_codes=["RON"], n=4)
+    with pytest.raises(PermissionDenied):
+        with session_scope(engine) as s:
+            svc.close_run(s, actors["analyst"], first.run.id, "budget cut")
+    with pytest.raises(InputError, match="reason"):
+        with session_scope(engine) as s:
+            svc.close_run(s, actors["lab_manager"], first.run.id, " ")
+    with session_scope(engine) as s:
+        assert svc.close_run(s, actors["lab_manager"], first.run.id, "budget cut").state == "closed"
+    again = run(engine, actors["lab_manager"], property_codes=["RON"], n=4, store=False)
+    assert set(first.picked_sample_ids) <= set(again.pool_sample_ids)
+    with pytest.raises(InputError, match="only an open run"):
+        with session_scope(engine) as s:
+            svc.close_run(s, actors["lab_manager"], first.run.id, "twice")

@@ -229,3 +229,27 @@ def test_correction_supersedes_and_keeps_the_old_result(with_samples, tmp_path):
         old = s.get(ReferenceResult, old_id)
         assert old.status == "superseded" and new.supersedes_id == old_id
         assert s.get(ReferenceResult, new.id).value == 92.0
+
+
+def test_csv_metadata_fills_sample_batch_source_and_sampling_time(registry, tmp_path):
+    engine, actors = registry
+    rng = np.random.default_rng(12)
+    head = "sample_id,grade,batch,source,taken_at," + ",".join(f"{v:.10g}" for v in AXIS)
+    y = rng.random(AXIS.size).astype(np.float32)
+    body = "M1,PREM95,B-0412,tank 7,2027-03-01T06:00," + ",".join(f"{v:.9g}" for v in y)
+    path = tmp_path / "meta.csv"
+    path.write_text(head + "\n" + body + "\n")
+    with session_scope(engine) as s:
+        intake.import_spectra(s, actors["analyst"], [path], instrument="IR-100")
+    with session_scope(engine) as s:
+        sample = s.exec(select(Sample).where(Sample.external_id == "M1")).one()
+        assert (sample.batch, sample.source) == ("B-0412", "tank 7")
+        # Naive times are the site's local time: Europe/Lisbon is UTC+0 in March.
+        assert sample.taken_at.isoformat().startswith("2027-03-01T06:00")
+    bad = tmp_path / "badtime.csv"
+    bad.write_text(head + "\n" + body.replace("M1,", "M2,").replace("2027-03-01T06:00", "soon")
+                   .replace(f"{y[0]:.9g}", "0.5", 1) + "\n")
+    with pytest.raises(ImportRejected) as err:
+        with session_scope(engine) as s:
+            intake.import_spectra(s, actors["analyst"], [bad], instrument="IR-100")
+    assert (err.value.errors[0].line, err.value.errors[0].field) == (2, "taken_at")
