@@ -69,3 +69,38 @@ def test_loaded_artifact_predicts_bit_identically_and_detects_tampering(trained)
     broken[len(broken) // 2] ^= 0x01
     with pytest.raises(IntegrityError):
         TrainedModel.from_bytes(bytes(broken), mv.artifact_sha256)
+
+
+def test_spectra_on_another_axis_are_resampled_or_refused(trained, tmp_path):
+    """A spectrum on a finer grid covering the model axis is interpolated onto it (linear;
+    checked against numpy.interp); one that does not cover the axis is refused."""
+    from registry.services import intake
+    from registry.spectra.formats import write_csv_spectra
+    from registry.spectra.record import SpectrumRecord
+
+    engine, actors, info, cs, mv = trained
+    pop = info["population"]
+    fine = np.linspace(pop.axis[0], pop.axis[-1], 2 * pop.axis.size - 1)
+    y_fine = np.interp(fine, pop.axis, pop.spectra[0]).astype(np.float32)
+    narrow = pop.axis[pop.axis > 1000.0]
+    recs = [SpectrumRecord("FINE-1", fine, y_fine, metadata={"grade": "PREM95"})]
+    write_csv_spectra(recs, tmp_path / "fine.csv", metadata_fields=["grade"])
+    write_csv_spectra([SpectrumRecord("NARROW-1", narrow,
+                                      pop.spectra[0][pop.axis > 1000.0].astype(np.float32),
+                                      metadata={"grade": "PREM95"})],
+                      tmp_path / "narrow.csv", metadata_fields=["grade"])
+    with session_scope(engine) as s:
+        fine_id = intake.import_spectra(s, actors["analyst"], [tmp_path / "fine.csv"],
+                                        instrument="IR-100").spectrum_ids[0]
+        narrow_id = intake.import_spectra(s, actors["analyst"], [tmp_path / "narrow.csv"],
+                                          instrument="IR-100").spectrum_ids[0]
+    with session_scope(engine) as s:
+        out = predictions.predict(s, actors["analyst"], mv.label, spectrum_ids=[fine_id])
+        original = predictions.predict(s, actors["analyst"], mv.label, spectrum_ids=[1])
+    # Linear interpolation back onto the model grid reproduces the original points (float32).
+    assert out.predictions[0]["value"] == pytest.approx(original.predictions[0]["value"], abs=1e-3)
+    from registry.errors import InputError
+
+    with pytest.raises(InputError, match="outside"):
+        with session_scope(engine) as s:
+            predictions.predict(s, actors["analyst"], mv.label, spectrum_ids=[narrow_id])
