@@ -177,7 +177,8 @@ def coverage_map(session: Session, actor: Actor, property_code: str, grade_code:
     cal_samples = dict(session.exec(select(Sample.id, Sample.external_id).where(
         Sample.id.in_({m.sample_id for m in members}))).all())
     cal_labels = [cal_samples[m.sample_id] for m in members for _ in m.spectrum_ids]
-    X_cal = trained.preprocessor.transform(_on_axis(session, cal_ids, trained.axis))
+    X_cal_raw = _on_axis(session, cal_ids, trained.axis)
+    X_cal = trained.preprocessor.transform(X_cal_raw)
     if X_cal.shape[0] < 3:
         raise InputError(f"model {mv.label} has {X_cal.shape[0]} calibration spectra; a map needs 3",
                          field="model")
@@ -199,8 +200,13 @@ def coverage_map(session: Session, actor: Actor, property_code: str, grade_code:
         _, diag = trained.predict(X_new)
         flags = diag.flag_lists()
         scores_new = pca.transform(trained.preprocessor.transform(X_new))
+        t2_new, q_new = diag.t2, diag.q
     else:
         flags, scores_new = [], np.empty((0, 2))
+        t2_new, q_new = np.empty(0), np.empty(0)
+    # Hotelling T² and Q residual of every spectrum against the model's own limits: the
+    # view in which a new blend component shows (high Q) even when PC1/PC2 look familiar.
+    _, diag_cal = trained.predict(X_cal_raw)
     outside = np.array([any(f in SPACE_FLAGS for f in fl) for fl in flags], dtype=bool)
     weekly: dict[datetime, list[int]] = {}
     for (_, t, _), out in zip(recent, outside):
@@ -215,6 +221,9 @@ def coverage_map(session: Session, actor: Actor, property_code: str, grade_code:
         "recent": {"scores": scores_new, "samples": [r[2] for r in recent],
                    "spectrum_ids": [r[0] for r in recent], "acquired_at": [r[1] for r in recent],
                    "outside": outside, "flags": flags},
+        "residuals": {"t2_limit": float(diag_cal.t2_limit), "q_limit": float(diag_cal.q_limit),
+                      "calibration": {"t2": diag_cal.t2.copy(), "q": diag_cal.q.copy()},
+                      "recent": {"t2": np.asarray(t2_new, float), "q": np.asarray(q_new, float)}},
         "counts": {"calibration": int(X_cal.shape[0]), "recent": len(recent),
                    "outside": int(outside.sum()),
                    "share_outside": float(outside.mean()) if len(recent) else None},

@@ -92,7 +92,7 @@ def test_a_signature_action_asks_for_the_password_again(ui_reg):
 def test_coverage_page_plots_calibration_and_recent_points(ui_reg):
     at = open_page(signed_in("reviewer"), "coverage")
     cov = service(ui_reg, views.coverage_map, "RON", "PREM95")
-    scatter, weekly = plotly_specs(at)
+    scatter, residuals, weekly = plotly_specs(at)
     by_name = {t["name"]: t for t in scatter["data"]}
     assert set(by_name) == {"calibration", "recent, inside", "recent, outside"}
     cal_x = array(by_name["calibration"]["x"])
@@ -104,6 +104,11 @@ def test_coverage_page_plots_calibration_and_recent_points(ui_reg):
     # weekly shares are outside/n of each week, drawn in percent
     shares = [100 * w["outside"] / w["n"] for w in cov["weekly"]]
     np.testing.assert_allclose(array(weekly["data"][0]["y"]), shares)
+    # the T²/Q view carries the same spectra, with the model's limits drawn as lines
+    res = {t["name"]: t for t in residuals["data"]}
+    np.testing.assert_allclose(array(res["calibration"]["y"]), cov["residuals"]["calibration"]["q"])
+    shapes = residuals["layout"]["shapes"]
+    assert {round(sh.get("x0", 0), 9) for sh in shapes} >= {round(cov["residuals"]["t2_limit"], 9)}
 
 
 def test_send_list_picks_what_the_budget_buys_and_offers_the_csv(ui_reg):

@@ -140,3 +140,15 @@ def test_trace_documents_render_the_audit_trace_for_those_who_may_trace(ui_reg, 
         assert out["html"].startswith("<!DOCTYPE html>") and f"prediction {pid}" in out["text"]
         with pytest.raises(PermissionDenied):  # tracing is for auditors, reviewers, lab managers
             views.trace_documents(s, ui_reg.actors["analyst"], pid)
+
+
+def test_coverage_residuals_use_the_models_own_limits(ui_reg, session_of):
+    """The T²/Q view repeats the model's diagnostics: a recent spectrum is beyond the Q limit
+    there exactly when the prediction-time check flags it (same numbers, no second computation)."""
+    with session_of() as s:
+        cov = views.coverage_map(s, ui_reg.actors["auditor"], "RON", "PREM95")
+    res, rec = cov["residuals"], cov["recent"]
+    assert res["t2_limit"] > 0 and res["q_limit"] > 0
+    over_q = np.asarray(res["recent"]["q"]) > res["q_limit"]
+    flagged_q = np.array(["q_residual" in f for f in rec["flags"]])
+    np.testing.assert_array_equal(over_q, flagged_q)

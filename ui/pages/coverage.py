@@ -69,6 +69,29 @@ fig.update_layout(template=PLOT_TEMPLATE, height=480, legend_title_text="",
                   yaxis_title=f"PC2 ({100 * ev[1]:.1f} %)")
 st.plotly_chart(fig, key="cov_scatter")
 
+st.subheader("Distance to the model and residual")
+st.caption("Hotelling T² (how far along the model's own directions) against the Q residual "
+           "(what the model cannot describe), each with the model's 99 % limit. A new blend "
+           "component shows as a high Q even where the scores above look familiar.")
+res = cov["residuals"]
+rfig = go.Figure()
+rfig.add_trace(go.Scatter(x=res["calibration"]["t2"], y=res["calibration"]["q"], mode="markers",
+                          name="calibration", text=cal["samples"],
+                          marker={"color": COLOURS["calibration"], "size": 7,
+                                  "symbol": "circle-open"}))
+for label, mask, colour, symbol in (("recent, inside", ~rec["outside"], COLOURS["inside"], "circle"),
+                                    ("recent, outside", rec["outside"], COLOURS["outside"], "x")):
+    idx = [i for i, m in enumerate(mask) if m]
+    rfig.add_trace(go.Scatter(
+        x=res["recent"]["t2"][idx], y=res["recent"]["q"][idx], mode="markers", name=label,
+        text=[rec["samples"][i] for i in idx], marker={"color": colour, "size": 8, "symbol": symbol}))
+rfig.add_vline(x=res["t2_limit"], line_dash="dash", line_color=COLOURS["calibration"])
+rfig.add_hline(y=res["q_limit"], line_dash="dash", line_color=COLOURS["calibration"])
+rfig.update_layout(template=PLOT_TEMPLATE, height=420, legend_title_text="",
+                   xaxis_title="Hotelling T²", yaxis_title="Q residual", xaxis_type="log",
+                   yaxis_type="log")
+st.plotly_chart(rfig, key="cov_residuals")
+
 st.subheader("Share outside the calibration space per week")
 if cov["weekly"]:
     weeks = pd.DataFrame(cov["weekly"])
