@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 import streamlit as st
@@ -85,8 +86,16 @@ for label, mask, colour, symbol in (("recent, inside", ~rec["outside"], COLOURS[
     rfig.add_trace(go.Scatter(
         x=res["recent"]["t2"][idx], y=res["recent"]["q"][idx], mode="markers", name=label,
         text=[rec["samples"][i] for i in idx], marker={"color": colour, "size": 8, "symbol": symbol}))
-rfig.add_vline(x=res["t2_limit"], line_dash="dash", line_color=COLOURS["calibration"])
-rfig.add_hline(y=res["q_limit"], line_dash="dash", line_color=COLOURS["calibration"])
+# Limits as line traces (shapes on log axes are easy to misplace): an L from the T² limit
+# down/left of the Q limit, spanning the plotted data.
+t2_all = np.concatenate([res["calibration"]["t2"], res["recent"]["t2"]])
+q_all = np.concatenate([res["calibration"]["q"], res["recent"]["q"]])
+lo_t2, hi_t2 = min(t2_all.min(), res["t2_limit"]) / 1.5, max(t2_all.max(), res["t2_limit"]) * 1.5
+lo_q, hi_q = min(q_all.min(), res["q_limit"]) / 1.5, max(q_all.max(), res["q_limit"]) * 1.5
+rfig.add_trace(go.Scatter(x=[res["t2_limit"], res["t2_limit"], None, lo_t2, hi_t2],
+                          y=[lo_q, hi_q, None, res["q_limit"], res["q_limit"]], mode="lines",
+                          name="99 % limits", hoverinfo="skip",
+                          line={"color": COLOURS["calibration"], "dash": "dash", "width": 1}))
 rfig.update_layout(template=PLOT_TEMPLATE, height=420, legend_title_text="",
                    xaxis_title="Hotelling T²", yaxis_title="Q residual", xaxis_type="log",
                    yaxis_type="log")
