@@ -126,16 +126,20 @@ class _Context:
         self.created_samples = 0
 
     def _load(self, keys: list[tuple[int, str]]) -> None:
-        """Cache the stored samples among ``keys`` (batched lookups)."""
-        from sqlalchemy import tuple_
-
+        """Cache the stored samples among ``keys`` (batched by site; the external-id index
+        serves ``IN``, which a row-value ``IN`` does not on SQLite)."""
         t = Sample.__table__
-        for start in range(0, len(keys), 400):
-            part = keys[start:start + 400]
-            for row in self.session.execute(select(t.c.id, t.c.site_id, t.c.external_id, t.c.grade_id)
-                                            .where(tuple_(t.c.site_id, t.c.external_id).in_(part))):
-                self.samples[(row.site_id, row.external_id)] = _SampleRef(
-                    row.id, row.site_id, row.external_id, row.grade_id)
+        by_site: dict[int, list[str]] = {}
+        for site_id, ext in keys:
+            by_site.setdefault(site_id, []).append(ext)
+        for site_id, exts in by_site.items():
+            for start in range(0, len(exts), 900):
+                part = exts[start:start + 900]
+                for row in self.session.execute(
+                        select(t.c.id, t.c.site_id, t.c.external_id, t.c.grade_id)
+                        .where(t.c.site_id == site_id, t.c.external_id.in_(part))):
+                    self.samples[(row.site_id, row.external_id)] = _SampleRef(
+                        row.id, row.site_id, row.external_id, row.grade_id)
 
     def resolve_samples(self, wanted: dict[tuple[int, str], Grade | None]) -> dict[tuple[int, str], int]:
         """Sample ids for (site, external id) keys, creating missing samples in one batch."""
