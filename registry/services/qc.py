@@ -247,15 +247,9 @@ def clear_qc_signal(session: Session, actor: Actor, trigger_id: int, reason: str
     if trig.kind != "qc_signal":
         raise InputError(f"trigger {trig.id} is a {trig.kind} trigger, not a QC signal",
                          field="TRIGGER")
-    if trig.cleared_at is not None:
-        raise StateError(f"QC signal {trig.id} was already cleared at {trig.cleared_at:%Y-%m-%d %H:%M} UTC")
-    reason = (reason or "").strip()
-    if not reason:
-        raise InputError("clearing a QC signal needs a reason (the cause found)", field="--reason")
-    trig.cleared_at, trig.cleared_by_id, trig.clear_reason = utcnow(), actor.id, reason
-    session.add(trig)
-    session.flush()
-    mv = session.get(ModelVersion, trig.model_version_id)
+    from .revalidation import close_trigger
+
+    mv, reason = close_trigger(session, actor, trig, reason, what="QC signal")
     audit(session, actor, Action.QC_CLEAR_SIGNAL, entity_type="model_version", entity_id=mv.id,
           data={"label": mv.label, "trigger_id": trig.id, "detail": trig.detail, "reason": reason})
     return trig

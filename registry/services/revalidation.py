@@ -198,18 +198,25 @@ def clear_trigger(session: Session, actor: Actor, trigger_id: int, reason: str) 
     authorize(actor, Action.TRIGGER_RAISE)
     if trig is None:
         raise NotFoundError(f"unknown revalidation trigger {trigger_id}")
-    if trig.cleared_at is not None:
-        raise StateError(f"trigger {trig.id} was already cleared")
-    reason = (reason or "").strip()
-    if not reason:
-        raise InputError("clearing a trigger needs a reason", field="--reason")
-    trig.cleared_at, trig.cleared_by_id, trig.clear_reason = utcnow(), actor.id, reason
-    session.add(trig)
-    session.flush()
-    mv = session.get(ModelVersion, trig.model_version_id)
+    mv, reason = close_trigger(session, actor, trig, reason, what="trigger")
     audit(session, actor, "trigger_clear", entity_type="model_version", entity_id=mv.id,
           data={"label": mv.label, "trigger_id": trig.id, "kind": trig.kind, "reason": reason})
     return trig
+
+
+def close_trigger(session: Session, actor: Actor, trig: RevalidationTrigger, reason: str, *,
+                  what: str) -> tuple[ModelVersion, str]:
+    """Mark an open trigger cleared by ``actor`` with a reason (the caller audits it)."""
+    if trig.cleared_at is not None:
+        raise StateError(f"{what} {trig.id} was already cleared at "
+                         f"{trig.cleared_at:%Y-%m-%d %H:%M} UTC")
+    reason = (reason or "").strip()
+    if not reason:
+        raise InputError(f"clearing a {what} needs a reason", field="--reason")
+    trig.cleared_at, trig.cleared_by_id, trig.clear_reason = utcnow(), actor.id, reason
+    session.add(trig)
+    session.flush()
+    return session.get(ModelVersion, trig.model_version_id), reason
 
 
 def list_triggers(session: Session, actor: Actor, *, label: str | None = None,

@@ -109,12 +109,11 @@ def _model_for(session: Session, prop: Property, grade: Grade, label: str | None
             raise InputError(f"model {mv.label} is not a {prop.code} model for grade {grade.code}",
                              field="model")
         return mv
-    for states in (("active",), ("approved", "validated")):
-        mv = session.exec(select(ModelVersion).where(
-            ModelVersion.property_id == prop.id, ModelVersion.grade_id == grade.id,
-            ModelVersion.state.in_(states)).order_by(ModelVersion.id.desc())).first()
-        if mv is not None:
-            return mv
+    from .selection import current_model
+
+    mv = current_model(session, prop, grade)
+    if mv is not None:
+        return mv
     raise NotFoundError(f"no active, approved or validated {prop.code} model for grade {grade.code}")
 
 
