@@ -90,6 +90,7 @@ class _Builder:
         self.months = months
         self.seed = seed
         self.rng = np.random.default_rng(seed)
+        self.meta_rng = np.random.default_rng(seed + 1)  # batch/tank labels; keeps self.rng's stream
         self.work = workdir
         self.start = (now - timedelta(days=int(MONTHS * 30.4))).replace(
             hour=8, minute=0, second=0, microsecond=0)
@@ -159,15 +160,19 @@ class _Builder:
                 sid = f"{serial[:2]}-{tag}{self.serial:05d}"
                 day = float(self.rng.uniform(0, 28))
                 when = self.at(month, day)
+                tank = int(self.meta_rng.integers(1, 9))
                 records.append(SpectrumRecord(sid, pop.axis, pop.spectra[i].astype(np.float32),
                                               metadata={"grade": grade, "operator": "shift-crew",
-                                                        "acquired_at": when.strftime("%Y-%m-%dT%H:%M:%SZ")}))
+                                                        "acquired_at": when.strftime("%Y-%m-%dT%H:%M:%SZ"),
+                                                        "batch": f"{serial[:2]}{when:%y%m%d}-T{tank}",
+                                                        "source": f"tank {tank}"}))
                 self.true[sid] = {c: float(v) for c, v in pop.properties.iloc[i].items()}
                 ids.append(sid)
                 if is_new:
                     self.report.new_component_samples.append(sid)
         path = self.work / f"m{month:04.1f}-{serial}-{tag}-{self.serial:05d}.csv"
-        write_csv_spectra(records, path, metadata_fields=["grade", "operator", "acquired_at"])
+        write_csv_spectra(records, path, metadata_fields=["grade", "operator", "acquired_at",
+                                                          "batch", "source"])
         analyst = self.actors["teodor" if serial == "KB-IR-01" else "sana"]
         self.act(self.at(month, 28), intake.import_spectra, analyst, [path], instrument=serial)
         return ids

@@ -47,8 +47,14 @@ def demo(db: Annotated[Path, typer.Option("--db", help="SQLite file for the demo
                   f"{'; '.join(d['reasons'])[:90]}" for d in report.due]
         lines += ["", "demo logins (DEMO ONLY - invented people, never reuse these passwords):"]
         lines += [f"    {u:<8} {r:<12} {p}" for u, r, p in report.logins]
-        lines += ["", "try:  SPECLEDGER_DATABASE_URL=" + str(db) + " specledger due",
-                  "      SPECLEDGER_DATABASE_URL=" + str(db) + " specledger model list --as jonas"]
+        env = f"SPECLEDGER_DATABASE_URL={db}"
+        lines += ["", "try (each asks for the user's password):",
+                  f"  {env} specledger due --as jonas",
+                  f"  {env} specledger model show RON-PREM95-v2 --as greta",
+                  f"  {env} specledger select --property RON --property MON --grade PREM95 "
+                  "--method kennard-stone --budget 3000 --pool outside-coverage --as imara",
+                  f"  {env} specledger trace --model RON-PREM95-v2 --format html --out trace.html --as jonas",
+                  f"  {env} specledger audit verify --as jonas"]
         lines += [f"  note: {n}" for n in report.notes]
         return "\n".join(lines)
     emit(fmt, doc, text)
