@@ -30,7 +30,8 @@ def test_select_with_a_budget_writes_a_send_list(sel_registry, tmp_path):
                "--method", "kennard-stone", "--budget", "3000", "--out", str(out)], url)
     assert res.exit_code == 0, res.output
     per_sample = sum(float(m["cost"]) for m in catalog.METHODS if m["property"] in ("RON", "MON"))
-    rows = list(csv.DictReader(out.open()))
+    with out.open() as fh:
+        rows = list(csv.DictReader(fh))
     assert len(rows) == int(3000 // per_sample)
     assert float(rows[-1]["cumulative_cost"]) <= 3000
     assert rows[0]["sample_id"] in res.output and "selection run 1" in res.output

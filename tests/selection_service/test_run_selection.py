@@ -307,7 +307,8 @@ def test_send_list_csv_has_the_promised_columns(sel_registry, tmp_path):
     svc.write_send_list(path, res.rows)
     import csv
 
-    rows = list(csv.DictReader(path.open()))
+    with path.open() as fh:
+        rows = list(csv.DictReader(fh))
     assert list(rows[0].keys()) == list(svc.SEND_LIST_COLUMNS)
     assert [r["sample_id"] for r in rows] == ids_of(res)
     assert [float(r["cumulative_cost"]) for r in rows] == [500.0, 1000.0, 1500.0]
