@@ -16,6 +16,7 @@ from datetime import date, datetime
 from typing import Annotated, Any, Callable, Iterator, Optional
 
 import typer
+from sqlalchemy.exc import SQLAlchemyError
 from sqlmodel import Session
 
 from ..errors import AuthenticationError, RegistryError
@@ -46,6 +47,10 @@ def handle_errors(fn: Callable) -> Callable:
             return fn(*args, **kwargs)
         except RegistryError as exc:
             fail(str(exc))
+        except SQLAlchemyError as exc:
+            # e.g. server unreachable, database locked by another writer: one line, no traceback
+            reason = str(getattr(exc, "orig", None) or exc).strip().splitlines()[0]
+            fail(f"database error ({type(exc).__name__}): {reason}; nothing was written")
         except KeyboardInterrupt:
             fail("interrupted; nothing was written", 130)
     return wrapper

@@ -61,6 +61,8 @@ def _sqlite_pragmas(dbapi_connection, _record) -> None:
     cur.execute("PRAGMA foreign_keys=ON")
     cur.execute("PRAGMA journal_mode=WAL")
     cur.execute("PRAGMA synchronous=NORMAL")
+    # Wait (rather than fail at once) while another process holds the write lock.
+    cur.execute("PRAGMA busy_timeout=10000")
     cur.close()
 
 

@@ -138,3 +138,10 @@ def test_an_old_schema_is_refused_with_the_upgrade_instruction(tmp_path):
     dispose_engines()
     assert run(["init"], db).exit_code == 0
     assert run(["site", "add", "S"], db, user="root").exit_code == 0
+
+
+def test_unreachable_server_is_one_line_not_a_traceback():
+    # Port 9 (discard) on loopback: nothing listens there, so the connection is refused at once.
+    res = run(["status"], "postgresql+psycopg://nobody@127.0.0.1:9/none")
+    assert res.exit_code != 0
+    assert "database error" in res.stderr and "Traceback" not in res.output + res.stderr
