@@ -224,7 +224,7 @@ def ensure_known(session: Session) -> None:
     """Raise a clear error when the database has no registry schema."""
     from ..storage.engine import current_revision, has_schema, head_revision
 
-    bind = session.get_bind()
+    bind = session.connection()
     if not has_schema(bind):
         raise RegistryError("this database has no registry schema: run 'specledger init' first")
     current, head = current_revision(bind), head_revision()

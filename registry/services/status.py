@@ -14,8 +14,7 @@ def registry_status(session: Session, url: str) -> dict:
 
     Reading status needs no login: it reveals no registry content.
     """
-    engine = session.get_bind()
-    revision = current_revision(engine)
+    revision = current_revision(session.connection())
     counts = {}
     if revision is not None:
         for name, table in ENTITY_TABLES.items():

@@ -68,8 +68,11 @@ def _sqlite_pragmas(dbapi_connection, _record) -> None:
 
 def _sqlite_begin(conn) -> None:
     # pysqlite's own transaction handling defers BEGIN; emit it ourselves so a
-    # user action really is one transaction (and SAVEPOINTs work).
-    conn.exec_driver_sql("BEGIN")
+    # user action really is one transaction (and SAVEPOINTs work). IMMEDIATE takes
+    # the write lock up front: a second writer then waits (busy_timeout) instead of
+    # failing when its read snapshot turns out stale, which a deferred BEGIN would do
+    # between reading the audit chain's head and appending to it.
+    conn.exec_driver_sql("BEGIN IMMEDIATE")
 
 
 _ENGINES: dict[str, Engine] = {}
@@ -143,10 +146,18 @@ def downgrade(url: str | None = None, revision: str = "base") -> None:
     command.downgrade(alembic_config(url), revision)
 
 
-def current_revision(engine: Engine) -> str | None:
-    from alembic.runtime.migration import MigrationContext
+def current_revision(bind) -> str | None:
+    """Schema revision of the database behind ``bind`` (an Engine or an open Connection).
 
-    with engine.connect() as conn:
+    Pass the session's connection inside a transaction: a second connection would wait
+    for the SQLite write lock the session itself holds.
+    """
+    from alembic.runtime.migration import MigrationContext
+    from sqlalchemy.engine import Connection
+
+    if isinstance(bind, Connection):
+        return MigrationContext.configure(bind).get_current_revision()
+    with bind.connect() as conn:
         return MigrationContext.configure(conn).get_current_revision()
 
 
@@ -156,5 +167,6 @@ def head_revision() -> str:
     return ScriptDirectory.from_config(alembic_config("sqlite://")).get_current_head()
 
 
-def has_schema(engine: Engine) -> bool:
-    return inspect(engine).has_table("audit_event")
+def has_schema(bind) -> bool:
+    """Whether the registry's tables exist (``bind``: Engine or open Connection)."""
+    return inspect(bind).has_table("audit_event")
