@@ -233,8 +233,11 @@ def coverage_map(session: Session, actor: Actor, property_code: str, grade_code:
 
 # --------------------------------------------------------------------------- trace
 
-def trace_documents(session: Session, actor: Actor, prediction_id: int) -> dict[str, Any]:
-    """The trace of one prediction as a document, plain text and a self-contained HTML page.
+def trace_documents(session: Session, actor: Actor, prediction_id: int | None = None, *,
+                    model: str | None = None, sample: str | None = None,
+                    property_code: str | None = None) -> dict[str, Any]:
+    """The trace of a prediction, a model version, or a sample and property, as a document,
+    plain text and a self-contained HTML page.
 
     Tracing needs the ``trace`` permission as well (checked by the audit service).
     """
@@ -242,6 +245,13 @@ def trace_documents(session: Session, actor: Actor, prediction_id: int) -> dict[
     from ..lineage.trace_render import render
     from .audit import trace
 
-    doc = trace(session, actor, prediction_id=int(prediction_id))
+    doc = trace(session, actor, prediction_id=None if prediction_id is None else int(prediction_id),
+                model=model, sample=sample, property_code=property_code)
     return {"document": doc, "text": render(doc, "text"), "json": render(doc, "json"),
             "html": render(doc, "html")}
+
+
+def latest_prediction_id(session: Session, actor: Actor) -> int | None:
+    """The newest prediction's id (a sensible default for the trace page)."""
+    authorize(actor, Action.VIEW)
+    return session.exec(select(Prediction.id).order_by(Prediction.id.desc()).limit(1)).first()

@@ -172,11 +172,27 @@ def test_trace_page_shows_the_trace_and_offers_the_html(ui_reg):
     assert at.download_button(key="trace_download").proto.label.startswith("Download")
 
 
-def test_trace_refused_for_an_analyst_is_an_error_not_a_traceback(ui_reg):
+def test_trace_is_not_offered_to_an_analyst(ui_reg):
     at = open_page(signed_in("analyst"), "trace")
+    assert not at.exception and not at.error
+    assert any("Tracing is for auditors" in i.value for i in at.info)
+    assert [b.key for b in at.button] == ["sign_out"]  # no trace form, no verify button
+
+
+def test_trace_from_a_model_version(ui_reg):
+    at = open_page(signed_in("reviewer"), "trace")
+    at.radio(key="trace_kind").set_value("a model version")
+    at.text_input(key="trace_model").set_value(ui_reg.label)
     at.form_submit_button[0].click().run()
-    assert not at.exception
-    assert any("may not trace records" in e.value for e in at.error)
+    assert not at.error, [e.value for e in at.error]
+    assert ui_reg.label in at.code[0].value
+
+
+def test_auditor_verifies_the_audit_trail(ui_reg):
+    at = open_page(signed_in("auditor"), "trace")
+    at.button(key="verify_button").click().run()
+    assert not at.error, [e.value for e in at.error]
+    assert at.success and at.success[0].value.startswith("Intact")
 
 
 def test_import_stores_uploaded_spectra_and_lists_every_rejected_line(ui_reg, tmp_path):
