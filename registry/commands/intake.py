@@ -10,7 +10,7 @@ import typer
 from ..services import intake as svc
 from ..services import references as ref_svc
 from ..services.references import ImportRejected
-from .common import AsOpt, DbOpt, FormatOpt, emit, handle_errors, login, transaction
+from .common import AsOpt, DbOpt, FormatOpt, emit, handle_errors, login, table, transaction
 
 import_app = typer.Typer(help="Bring spectra and reference results into the registry.",
                          no_args_is_help=True)
@@ -112,6 +112,22 @@ def reference_correct(result_id: int, value: Annotated[float, typer.Option("--va
     with transaction(db) as session:
         rr = ref_svc.correct_reference(session, login(session, as_user), result_id, value, reason)
     emit(fmt, rr, f"reference result {rr.id} supersedes {rr.supersedes_id}")
+
+
+@reference_app.command("list")
+@handle_errors
+def reference_list(status: Annotated[Optional[str], typer.Option(
+                       "--status", help="valid, suspect, rejected or superseded")] = None,
+                   sample: Annotated[Optional[str], typer.Option("--sample")] = None,
+                   prop: Annotated[Optional[str], typer.Option("--property")] = None,
+                   limit: Annotated[int, typer.Option("--limit")] = 500,
+                   db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+    """List reference results, newest first (e.g. --status suspect for the review queue)."""
+    with transaction(db) as session:
+        rows = ref_svc.list_references(session, login(session, as_user), status=status,
+                                       sample=sample, property_code=prop, limit=limit)
+    emit(fmt, rows, lambda: table(rows, ["id", "sample", "property", "method", "value", "lab",
+                                         "tested_at", "status", "reason"]))
 
 
 def register(app: typer.Typer) -> None:

@@ -328,3 +328,27 @@ def calibration_values(session: Session, sample_ids: Iterable[int], property_id:
             continue
         out[sid] = (sum(r.value for r in rs) / len(rs), sorted(r.id for r in rs))
     return out
+
+
+def list_references(session: Session, actor: Actor, *, status: str | None = None,
+                    sample: str | None = None, property_code: str | None = None,
+                    limit: int = 500) -> list[dict]:
+    """Reference results, newest first (e.g. the suspect ones a reviewer must resolve)."""
+    authorize(actor, Action.VIEW)
+    if status is not None and status not in ("valid", "suspect", "rejected", "superseded"):
+        raise InputError(f"unknown status {status!r}; use valid, suspect, rejected or superseded",
+                         field="--status")
+    q = (select(ReferenceResult, Sample, ReferenceMethod, Property)
+         .join(Sample, Sample.id == ReferenceResult.sample_id)
+         .join(ReferenceMethod, ReferenceMethod.id == ReferenceResult.method_id)
+         .join(Property, Property.id == ReferenceMethod.property_id))
+    if status:
+        q = q.where(ReferenceResult.status == status)
+    if sample:
+        q = q.where(Sample.external_id == sample)
+    if property_code:
+        q = q.where(Property.code == property_code.upper())
+    rows = session.exec(q.order_by(ReferenceResult.id.desc()).limit(int(limit))).all()
+    return [{"id": r.id, "sample": s.external_id, "property": p.code, "method": m.code,
+             "value": r.value, "lab": r.lab, "tested_at": r.tested_at, "status": r.status,
+             "reason": r.status_reason, "supersedes": r.supersedes_id} for r, s, m, p in rows]

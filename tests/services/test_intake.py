@@ -253,3 +253,16 @@ def test_csv_metadata_fills_sample_batch_source_and_sampling_time(registry, tmp_
         with session_scope(engine) as s:
             intake.import_spectra(s, actors["analyst"], [bad], instrument="IR-100")
     assert (err.value.errors[0].line, err.value.errors[0].field) == (2, "taken_at")
+
+
+def test_reviewer_finds_suspect_results_in_the_list(with_samples, tmp_path):
+    engine, actors = with_samples
+    body = "R3,RON,ASTM D2699,94.0,,L,2027-03-02\nR3,RON,ASTM D2699,95.0,,L,2027-03-03\n"
+    with session_scope(engine) as s:
+        references.import_references(s, actors["analyst"], _refs(tmp_path, body))
+    with session_scope(engine) as s:
+        rows = references.list_references(s, actors["reviewer"], status="suspect")
+        assert {r["sample"] for r in rows} == {"R3"} and len(rows) == 2
+        assert all("exceeds r" in r["reason"] for r in rows)
+        with pytest.raises(InputError, match="unknown status"):
+            references.list_references(s, actors["reviewer"], status="odd")
