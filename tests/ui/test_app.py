@@ -215,3 +215,26 @@ def test_import_stores_uploaded_spectra_and_lists_every_rejected_line(ui_reg, tm
     assert len(at.error) == 1 and "nothing of this" in at.error[0].value
     listed = at.code[0].value.splitlines()
     assert len(listed) == 2 and "line 2" in listed[0] and "line 4" in listed[1]
+
+
+def test_reviewer_resolves_a_suspect_result_on_the_import_page(ui_reg, tmp_path):
+    from registry.services import references
+
+    # Two RON repeats 0.8 apart on one sample: beyond r = 0.2 (ASTM D2699, from memory).
+    sample = ui_reg.info["unreferenced"][0]
+    path = tmp_path / "repeats.csv"
+    path.write_text("sample_id,property,method,value,unit,lab,tested_at\n"
+                    f"{sample},RON,ASTM D2699,94.0,,Lab B,2027-04-01T09:00\n"
+                    f"{sample},RON,ASTM D2699,94.8,,Lab B,2027-04-02T09:00\n")
+    service(ui_reg, references.import_references, path, role="analyst")
+    at = open_page(signed_in("reviewer"), "imports")
+    table = frame(at, "reason")
+    assert set(table["sample"]) == {sample}
+    first = int(table["id"].iloc[0])
+    at.selectbox(key="res_id").set_value(first)
+    at.radio(key="res_decision").set_value("reject")
+    at.text_input(key="res_reason").set_value("sample bottle found unsealed")
+    at.form_submit_button(key="FormSubmitter:resolve_suspect-Record the decision").click().run()
+    assert not at.error, [e.value for e in at.error]
+    rows = service(ui_reg, references.list_references, sample=sample)
+    assert {r["id"]: r["status"] for r in rows}[first] == "rejected"

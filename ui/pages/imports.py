@@ -80,3 +80,30 @@ else:
                     st.success(f"{summary.imported} results imported; {summary.suspect} marked suspect "
                                f"(repeats further apart than the method's repeatability); "
                                f"{summary.linked_to_selection} answer a selection run.")
+
+st.subheader("Suspect reference results")
+suspect = call(references.list_references, status="suspect")
+if suspect is FAILED:
+    st.stop()
+if not suspect:
+    st.write("None: no repeats disagree by more than the method's repeatability.")
+else:
+    st.caption("Repeats that differ by more than the method's repeatability r hold their sample "
+               "out of calibration until a reviewer keeps or rejects each result (common practice).")
+    st.dataframe(suspect, hide_index=True, key="suspect_table",
+                 column_order=["id", "sample", "property", "method", "value", "lab", "tested_at",
+                               "reason"])
+    if may(Action.RESOLVE_SUSPECT_REFERENCE):
+        with st.form("resolve_suspect"):
+            rid = st.selectbox("Result", [r["id"] for r in suspect], key="res_id",
+                               format_func=lambda i: next(f"#{r['id']} {r['sample']} {r['property']} "
+                                                          f"= {r['value']:g} ({r['lab']})"
+                                                          for r in suspect if r["id"] == i))
+            decision = st.radio("Decision", ["accept", "reject"], horizontal=True, key="res_decision")
+            reason = st.text_input("Reason (what was found)", key="res_reason")
+            if st.form_submit_button("Record the decision"):
+                done = call(references.resolve_suspect, int(rid), decision, reason)
+                if done is not FAILED:
+                    st.success(f"Result #{done.id} is now {done.status}.")
+    else:
+        st.info("Resolving suspect results is a reviewer's task.")
