@@ -42,7 +42,7 @@ c[0].metric("PLS components", d["components"])
 c[1].metric("Calibration / validation samples", f"{d['calibration_set']['n_cal']} / "
             f"{d['calibration_set']['n_val']}")
 c[2].metric("Author", d["author"] or "")
-c[3].metric("Last validated", when(d["last_validated_at"]) or "never")
+c[3].metric("Last validated", d["last_validated_at"].strftime("%Y-%m-%d") if d["last_validated_at"] else "never")
 st.caption(f"Calibration set {d['calibration_set']['name']} (SHA-256 {d['calibration_set']['sha256'][:16]}…); "
            f"artifact SHA-256 {d['artifact_sha256'][:16]}…"
            + (f"; parent {d['parent']}" if d["parent"] else ""))
