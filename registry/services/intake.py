@@ -7,6 +7,7 @@ CSV files are streamed chunk by chunk, so memory is bounded by one chunk.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import os
 from dataclasses import dataclass, field
@@ -25,6 +26,7 @@ from ..storage.models import Grade, Instrument, Sample, Site
 from ..storage.spectra_store import existing_hashes, get_or_create_axis, insert_spectra
 from ..storage.types import utcnow
 from .context import Actor, audit, authorize
+from . import parse_ahead
 from .references import MAX_REPORTED_ERRORS, ImportRejected
 from .timeparse import parse_time
 
@@ -90,6 +92,28 @@ def read_batches(path: Path, fmt: str = "auto", *, chunk_rows: int = 1000,
         yield from _group_records(label, recs)
     else:
         raise InputError(f"unknown format {fmt!r}; use auto, jcamp or csv", field="--format")
+
+
+def _batches(path: Path, fmt: str, chunk_rows: int, sample_id_field: str) -> Iterator[Batch]:
+    """The file's batches; a large wide CSV file is parsed in two windows by child processes
+    (see :mod:`.parse_ahead`), otherwise inline."""
+    from ..spectra.formats.csv_matrix import split_wide_csv
+
+    if parse_ahead.use_children(path) and (fmt == "csv" or (fmt == "auto" and
+                                                           detect_format(path) == "csv")):
+        windows = split_wide_csv(path, 2)
+        if windows:
+            producers = [functools.partial(_window_batches, path, w, chunk_rows) for w in windows]
+            yield from parse_ahead.interleaved(producers)
+            return
+    yield from read_batches(path, fmt, chunk_rows=chunk_rows, sample_id_field=sample_id_field)
+
+
+def _window_batches(path: Path, window: tuple[int, int, int], chunk_rows: int) -> Iterator[Batch]:
+    label = str(path)
+    for chunk in iter_csv_spectra(path, chunk_rows=chunk_rows, file_label=label, window=window):
+        yield Batch(label, chunk.axis, chunk.Y, list(chunk.sample_ids), list(chunk.metadata),
+                    list(chunk.first_line))
 
 
 def _group_records(label: str, recs: list) -> Iterator[Batch]:
@@ -196,8 +220,7 @@ def import_spectra(session: Session, actor: Actor, paths: list[str | Path], *,
         per = {"imported": 0, "skipped": 0}
         summary.per_file[str(path)] = per
         try:
-            for batch in read_batches(path, fmt, chunk_rows=chunk_rows,
-                                      sample_id_field=sample_id_field):
+            for batch in _batches(path, fmt, chunk_rows, sample_id_field):
                 rows = _prepare(ctx, batch, errors, seen, on_duplicate, per, now, actor)
                 if rows and not errors:
                     ids = insert_spectra(session, rows)

@@ -266,3 +266,45 @@ def test_reviewer_finds_suspect_results_in_the_list(with_samples, tmp_path):
         assert all("exceeds r" in r["reason"] for r in rows)
         with pytest.raises(InputError, match="unknown status"):
             references.list_references(s, actors["reviewer"], status="odd")
+
+
+def test_large_files_parsed_in_child_processes_store_the_same_and_report_the_same(
+        registry, tmp_path, monkeypatch):
+    """The two-window parse (forked children) must be invisible: same spectra, same hashes,
+    same error location as the inline parse."""
+    from registry.services import parse_ahead
+
+    engine, actors = registry
+    rng = np.random.default_rng(31)
+    rows = [(f"W{k:03d}", "PREM95", "2027-03-01", rng.random(AXIS.size).astype(np.float32))
+            for k in range(60)]
+    good = csv_file(tmp_path, "good.csv", rows)
+    monkeypatch.setattr(parse_ahead, "PARALLEL_MIN_BYTES", 0)
+    assert parse_ahead.use_children(good)
+    with session_scope(engine) as s:
+        summary = intake.import_spectra(s, actors["analyst"], [good], instrument="IR-100")
+    assert summary.imported == 60
+    with session_scope(engine) as s:
+        from registry.storage.models import Spectrum
+
+        stored = set(s.exec(select(Spectrum.sha256)).all())
+    from registry.spectra.formats import iter_csv_spectra
+
+    expected = {r.content_sha256() for c in iter_csv_spectra(good) for r in c.records()}
+    assert stored == expected and len(expected) == 60
+    # A bad cell late in the file (second window): the line is the file's own line.
+    bad_rows = [(f"X{k:03d}", "PREM95", "2027-03-01", rng.random(AXIS.size).astype(np.float32))
+                for k in range(60)]
+    bad = csv_file(tmp_path, "bad.csv", bad_rows)
+    lines = bad.read_text().splitlines()
+    cells = lines[55].split(",")
+    cells[10] = "oops"
+    lines[55] = ",".join(cells)
+    bad.write_text("\n".join(lines) + "\n")
+    before = snapshot(engine)
+    with pytest.raises(ImportRejected) as err:
+        with session_scope(engine) as s:
+            intake.import_spectra(s, actors["analyst"], [bad], instrument="IR-100")
+    e = err.value.errors[0]
+    assert (e.line, e.field) == (56, lines[0].split(",")[10]) and "oops" in e.message
+    assert snapshot(engine) == before

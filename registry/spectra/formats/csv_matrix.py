@@ -137,16 +137,47 @@ class _Header:
                          if i != self.sample_pos and i not in numeric]
 
 
-def _read_chunks(path, header: _Header, rows: int):
-    """pandas C-engine chunks; text columns as strings, number columns inferred."""
+class _Window:
+    """A read-only view of bytes [start, end) of a file, for pandas' C parser."""
+
+    def __init__(self, path, start: int, end: int):
+        self._fh = open(path, "rb")
+        self._fh.seek(start)
+        self._left = end - start
+
+    def read(self, size: int = -1) -> bytes:
+        if self._left <= 0:
+            return b""
+        size = self._left if size is None or size < 0 else min(size, self._left)
+        data = self._fh.read(size)
+        self._left -= len(data)
+        return data
+
+    def close(self) -> None:
+        self._fh.close()
+
+
+def _read_chunks(path, header: _Header, rows: int, window: tuple[int, int, int] | None = None):
+    """pandas C-engine chunks; text columns as strings, number columns inferred.
+
+    ``window`` = (start byte, end byte, file line of the first byte) limits the parse to
+    whole lines of part of the file (see :func:`split_wide_csv`); line numbers in errors
+    stay those of the file.
+    """
     text_columns = {i: str for i in [header.sample_pos, *header.meta_pos]}
+    source, skip, line_offset = path, 1, 0
+    if window is not None:
+        start, end, first_line = window
+        source = _Window(path, start, end)
+        skip = 1 if start == 0 else 0
+        line_offset = first_line - (2 if start == 0 else 1)
     try:
         with warnings.catch_warnings():
             # pandas only warns (and drops cells) when the first row is longer
             # than the header; that is a format error here.
             warnings.simplefilter("error", pd.errors.ParserWarning)
             reader = pd.read_csv(
-                path, sep=header.delimiter, header=None, skiprows=1,
+                source, sep=header.delimiter, header=None, skiprows=skip,
                 names=list(range(len(header.names))), index_col=False, dtype=text_columns,
                 na_filter=False, skip_blank_lines=False, engine="c", chunksize=rows,
                 encoding="utf-8-sig")
@@ -162,16 +193,20 @@ def _read_chunks(path, header: _Header, rows: int):
                     yield frame
     except pd.errors.ParserWarning:
         raise FormatError(f"a row near the start has more fields than the {len(header.names)} "
-                          "columns of the header", file=header.file, line=2) from None
+                          "columns of the header", file=header.file,
+                          line=2 + line_offset) from None
     except pd.errors.ParserError as exc:
         found = re.search(r"line (\d+)", str(exc))
         message = str(exc).replace("Error tokenizing data. ", "")
         raise FormatError(f"wrong number of fields: {message}", file=header.file,
-                          line=int(found.group(1)) if found else None) from None
+                          line=int(found.group(1)) + line_offset if found else None) from None
     except pd.errors.EmptyDataError:
         return
     except UnicodeDecodeError as exc:
         raise FormatError(f"file is not UTF-8 text ({exc.reason})", file=header.file) from None
+    finally:
+        if window is not None:
+            source.close()
 
 
 def _bad_cell(values: np.ndarray) -> int | None:
@@ -233,7 +268,8 @@ def _metadata_rows(frame: pd.DataFrame, header: _Header) -> list[dict]:
 
 def iter_csv_spectra(path, *, chunk_rows: int = 1000, delimiter: str | None = None,
                      x_unit: str = WAVENUMBER, sample_id_column: str = "sample_id",
-                     file_label: str | None = None) -> Iterator[CsvChunk]:
+                     file_label: str | None = None,
+                     window: tuple[int, int, int] | None = None) -> Iterator[CsvChunk]:
     """Stream the spectra of a CSV file, ``chunk_rows`` spectra at a time.
 
     Parameters
@@ -270,6 +306,12 @@ def iter_csv_spectra(path, *, chunk_rows: int = 1000, delimiter: str | None = No
     label = file_label or os.fspath(path)
     unit = canonical_x_unit(x_unit)
     header = _Header(path, label, delimiter, sample_id_column)
+    if window is not None:
+        # One part of a wide file (split_wide_csv); an empty part is fine.
+        if not header.wide:
+            raise InputError("only wide-form CSV files can be read in parts", field="window")
+        yield from _iter_wide(path, header, chunk_rows, unit, window)
+        return
     chunks = (_iter_wide if header.wide else _iter_long)(path, header, chunk_rows, unit)
     empty = True
     for chunk in chunks:
@@ -279,7 +321,44 @@ def iter_csv_spectra(path, *, chunk_rows: int = 1000, delimiter: str | None = No
         raise FormatError("no spectra after the header line", file=label, line=2)
 
 
-def _iter_wide(path, header: _Header, chunk_rows: int, unit: str) -> Iterator[CsvChunk]:
+def split_wide_csv(path, parts: int, *, delimiter: str | None = None,
+                   sample_id_column: str = "sample_id") -> list[tuple[int, int, int]] | None:
+    """Cut a wide-form CSV file into ``parts`` windows of whole lines.
+
+    Returns ``[(start byte, end byte, file line of start), ...]`` covering the file (the
+    first window starts at byte 0 and includes the header), for
+    ``iter_csv_spectra(..., window=...)``; None for a long-form file, whose samples
+    span rows and must not be cut.
+    """
+    header = _Header(path, os.fspath(path), delimiter, sample_id_column)
+    if not header.wide or parts < 2:
+        return None
+    size = os.path.getsize(path)
+    cuts = [0]
+    with open(path, "rb") as fh:
+        for k in range(1, parts):
+            fh.seek(max(size * k // parts, cuts[-1]))
+            fh.readline()  # to the start of the next whole line
+            cuts.append(min(fh.tell(), size))
+    cuts.append(size)
+    windows, line = [], 1
+    with open(path, "rb") as fh:
+        for a, b in zip(cuts, cuts[1:]):
+            windows.append((a, b, line))
+            fh.seek(a)
+            left = b - a
+            while left > 0:  # count the lines of this window for the next one's numbering
+                block = fh.read(min(left, 1 << 22))
+                if not block:
+                    break
+                line += block.count(b"\n")
+                left -= len(block)
+    # The first window's rows start on line 2 (after the header); later ones where they begin.
+    return [(a, b, 2 if a == 0 else first) for a, b, first in windows]
+
+
+def _iter_wide(path, header: _Header, chunk_rows: int, unit: str,
+               window: tuple[int, int, int] | None = None) -> Iterator[CsvChunk]:
     raw_axis = np.array([float(header.names[i]) for i in header.axis_pos])
     try:
         axis, order = normalise_ascending(raw_axis, np.arange(raw_axis.size), file=header.file,
@@ -292,8 +371,8 @@ def _iter_wide(path, header: _Header, chunk_rows: int, unit: str) -> Iterator[Cs
     # text cells cost a Python string each (~64 bytes), numbers 8 bytes
     row_bytes = 8 * len(columns) + 64 * (1 + len(header.meta_pos))
     read_rows = max(chunk_rows, _PARSE_BYTES // row_bytes)
-    next_line = 2
-    for frame in _read_chunks(path, header, read_rows):
+    next_line = 2 if window is None else window[2]
+    for frame in _read_chunks(path, header, read_rows, window):
         first_line = next_line
         next_line += len(frame)
         ids = _text_column(frame, header.sample_pos)
