@@ -9,8 +9,15 @@ from urllib.parse import urlsplit
 
 import pytest
 import sqlalchemy as sa
+from hypothesis import settings as hypothesis_settings
 
 from registry.storage.engine import make_engine, session_scope, upgrade
+
+# CI explores the same examples every run (a red run must mean a change broke something);
+# local runs keep exploring new examples, which is how the fuzzers find real bugs.
+hypothesis_settings.register_profile("ci", derandomize=True, deadline=None, print_blob=True)
+if os.environ.get("CI"):
+    hypothesis_settings.load_profile("ci")
 
 PG_URL = os.environ.get("SPECLEDGER_TEST_PG_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/test")
 PASSWORD = "test-password-1"
