@@ -224,17 +224,10 @@ class _Builder:
     def predict_month(self, month: float, ids_by_serial: dict[str, list[str]],
                       labels: dict[str, str]) -> None:
         """The analyst predicts every production spectrum of the month with the active models."""
-        from sqlmodel import select
-
-        from registry.storage.models import Sample, Spectrum
-
-        with session_scope(self.engine) as s:
-            spec = {}
-            for serial, ids in ids_by_serial.items():
-                rows = s.exec(select(Spectrum.id, Sample.external_id)
-                              .join(Sample, Sample.id == Spectrum.sample_id)
-                              .where(Sample.external_id.in_(ids))).all()
-                spec[serial] = [r[0] for r in rows]
+        when = self.at(month, 28, hour=6)
+        spec = {serial: self.act(when, intake.spectra_of_samples,
+                                 self.actors["teodor" if serial == "KB-IR-01" else "sana"], ids)
+                for serial, ids in ids_by_serial.items()}
         for serial, spectrum_ids in spec.items():
             analyst = self.actors["teodor" if serial == "KB-IR-01" else "sana"]
             for prop, label in labels.items():

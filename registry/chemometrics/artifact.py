@@ -20,7 +20,8 @@ from typing import Any
 
 import numpy as np
 
-from registry.chemometrics.container import pack, sha256_hex, unpack
+from registry.chemometrics.container import pack, unpack
+from registry.lineage.canonical import sha256_hex
 from registry.chemometrics.crossval import CVResult, cross_validate_pls
 from registry.chemometrics.diagnostics import ApplicabilityDomain, DiagnosticsResult
 from registry.chemometrics.folds import assign_folds

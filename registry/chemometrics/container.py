@@ -16,7 +16,6 @@ gives the same bytes (no timestamps), so the SHA-256 identifies the content.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import struct
 from typing import Any
@@ -24,6 +23,7 @@ from typing import Any
 import numpy as np
 
 from registry.errors import FormatError, IntegrityError
+from registry.lineage.canonical import sha256_hex
 
 MAGIC = b"SLARRAY1"
 _DTYPES = {"<f8": np.dtype("<f8"), "<i8": np.dtype("<i8"), "|b1": np.dtype("|b1")}
@@ -54,10 +54,6 @@ def pack(arrays: dict[str, np.ndarray], document: Any) -> bytes:
     manifest = json.dumps({"arrays": entries, "json": document}, sort_keys=True,
                           separators=(",", ":"), allow_nan=False).encode("utf-8")
     return MAGIC + struct.pack("<Q", len(manifest)) + manifest + b"".join(chunks)
-
-
-def sha256_hex(blob: bytes) -> str:
-    return hashlib.sha256(blob).hexdigest()
 
 
 def unpack(blob: bytes, expected_sha256: str | None) -> tuple[dict[str, np.ndarray], Any]:

@@ -59,13 +59,7 @@ def user_add(name: str,
     """Add a user. The first user of an empty registry must be an admin and needs no --as."""
     roles = [r.strip() for item in role for r in item.split(",") if r.strip()]
     with transaction(db) as session:
-        from sqlalchemy import func
-        from sqlmodel import select
-
-        from ..storage.models import User
-
-        first = session.exec(select(func.count()).select_from(User)).one() == 0
-        actor = None if first else login(session, as_user)
+        actor = None if svc.is_empty(session) else login(session, as_user)
         if password_stdin:
             new_password = sys.stdin.readline().rstrip("\n")
         else:

@@ -42,16 +42,8 @@ def calset_create(name: str,
 @handle_errors
 def calset_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
     """List calibration sets."""
-    from sqlmodel import select
-
-    from ..lifecycle.permissions import Action
-    from ..services.context import authorize
-    from ..storage.models import CalibrationSet
-
     with transaction(db) as session:
-        authorize(login(session, as_user), Action.VIEW)
-        rows = [svc.calset_summary(session, cs) for cs in
-                session.exec(select(CalibrationSet).order_by(CalibrationSet.id)).all()]
+        rows = svc.list_calibration_sets(session, login(session, as_user))
     emit(fmt, rows, lambda: table(rows, ["id", "name", "property", "grade", "n_cal", "n_val", "created_at"]))
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 from typing import Annotated, Optional
 
@@ -43,7 +44,7 @@ def import_spectra(paths: Annotated[list[Path], typer.Argument(help="Files or fo
     try:
         with transaction(db) as session:
             actor = login(session, as_user)
-            with typer.progressbar(length=0, label="importing", show_pos=True,
+            with typer.progressbar(length=0, label="importing", show_pos=True, file=sys.stderr,
                                    hidden=output == "json") as bar:
                 def progress(done: int, file: str) -> None:
                     bar.pos = done

@@ -8,31 +8,19 @@ hashes: the version's artifact, its validation record and its calibration
 set. If any of those later changes, :meth:`SignatureRecord.is_intact` turns
 false.
 
-:func:`canonical_json` is general on purpose: the audit chain hashes its
-events with it too. Its rules: object keys sorted (by code point), no spaces,
-non-ASCII kept as UTF-8, floats as Python ``repr`` (shortest round-trip
-form), numpy scalars and arrays as their Python values, datetimes as
-ISO-8601 UTC with microseconds and a ``Z``. It resembles RFC 8785 but is not
-it (number formatting differs). Ambiguous input is refused rather than
-guessed: naive datetimes, NaN/infinity, non-string keys, sets, bytes.
+:func:`canonical_json` (re-exported from :mod:`registry.lineage.canonical`, the one
+implementation, shared with the audit chain) gives the hashed text.
 """
 
 from __future__ import annotations
 
-import hashlib
 import hmac
-import json
-import math
-import uuid
 from collections.abc import Hashable, Mapping
 from dataclasses import dataclass
-from datetime import date, datetime, timezone
-from enum import Enum
-from typing import Any
-
-import numpy as np
+from datetime import datetime, timezone
 
 from registry.errors import InputError
+from registry.lineage.canonical import utc_text, canonical_json, sha256_hex  # noqa: F401  (re-exported)
 from registry.lifecycle.revalidation import to_site_time
 from registry.lifecycle.states import LifecycleAction
 
@@ -47,70 +35,6 @@ SIGNATURE_MEANINGS: dict[LifecycleAction, str] = {
 #: The hashes a model-version signature covers (services may add more parts).
 MODEL_VERSION_PARTS: tuple[str, ...] = (
     "artifact_sha256", "validation_record_sha256", "calibration_set_sha256")
-
-
-def _utc_text(value: datetime, path: str) -> str:
-    if value.tzinfo is None or value.utcoffset() is None:
-        raise InputError(f"datetime at {path} has no time zone; cannot place it in UTC",
-                         field=path)
-    utc = value.astimezone(timezone.utc).replace(tzinfo=None)
-    return utc.isoformat(timespec="microseconds") + "Z"
-
-
-def _plain(obj: Any, path: str) -> Any:
-    """``obj`` as plain JSON types, refusing anything without one obvious form."""
-    if obj is None or isinstance(obj, (bool, np.bool_)):
-        return None if obj is None else bool(obj)
-    if isinstance(obj, Enum):
-        return _plain(obj.value, path)
-    if isinstance(obj, str):
-        return str(obj)
-    if isinstance(obj, (int, np.integer)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        value = float(obj)
-        if not math.isfinite(value):
-            raise InputError(f"{value} at {path} has no JSON form", field=path)
-        return value
-    if isinstance(obj, datetime):
-        return _utc_text(obj, path)
-    if isinstance(obj, date):
-        return obj.isoformat()
-    if isinstance(obj, uuid.UUID):
-        return str(obj)
-    if isinstance(obj, Mapping):
-        out = {}
-        for key, value in obj.items():
-            if isinstance(key, Enum):
-                key = key.value
-            if not isinstance(key, str):
-                raise InputError(f"key {key!r} at {path} is not a string", field=path)
-            out[str(key)] = _plain(value, f"{path}.{key}")
-        return out
-    if isinstance(obj, np.ndarray):
-        return [_plain(v, f"{path}[{i}]") for i, v in enumerate(obj.tolist())]
-    if isinstance(obj, (list, tuple)):
-        return [_plain(v, f"{path}[{i}]") for i, v in enumerate(obj)]
-    raise InputError(f"value of type {type(obj).__name__} at {path} has no canonical JSON form",
-                     field=path)
-
-
-def canonical_json(obj: Any) -> str:
-    """One fixed JSON text for ``obj``, so equal content always hashes equal.
-
-    Raises
-    ------
-    InputError
-        For values with no single obvious JSON form; ``field`` is the path
-        (``$.a[2].b``) to the offending value.
-    """
-    return json.dumps(_plain(obj, "$"), sort_keys=True, separators=(",", ":"),
-                      ensure_ascii=False, allow_nan=False)
-
-
-def sha256_hex(text: str) -> str:
-    """SHA-256 of ``text`` encoded as UTF-8, lower-case hex."""
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
 def signed_content_hash(parts: Mapping[str, str]) -> str:
@@ -186,7 +110,7 @@ class SignatureRecord:
     def as_dict(self) -> dict:
         """Plain fields, e.g. to store or to put in an audit event."""
         return {"signer_id": self.signer_id, "signer_name": self.signer_name,
-                "signed_at": _utc_text(self.signed_at, "signed_at"),
+                "signed_at": utc_text(self.signed_at, "signed_at"),
                 "action": self.action.value, "meaning": self.meaning,
                 "content_hash": self.content_hash}
 

@@ -1,4 +1,4 @@
-"""The append-only audit trail as a hash chain.
+"""The append-only audit trail as a hash chain (verified by :mod:`registry.lineage.verify`).
 
 Each event stores the canonical JSON of its payload, which itself contains the
 sequence number, time, user, action and entity, so that reordering or editing
@@ -8,11 +8,10 @@ event's ``prev_hash`` is 64 zeros.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
 from datetime import datetime
 from typing import Any, Iterable
 
-from sqlalchemy import func, text
+from sqlalchemy import text
 from sqlmodel import Session, select
 
 from ..storage.models import AuditEvent
@@ -52,20 +51,6 @@ def append_event(session: Session, *, user_id: int | None, user_name: str, actio
     return event
 
 
-@dataclass
-class ChainReport:
-    """Outcome of a chain walk: events checked and each problem found."""
-
-    n_events: int = 0
-    head: str = GENESIS
-    first_broken_seq: int | None = None
-    problems: list[str] = field(default_factory=list)
-
-    @property
-    def intact(self) -> bool:
-        return not self.problems
-
-
 def iter_events(session: Session, batch: int = 5000) -> Iterable[AuditEvent]:
     last_id = 0
     while True:
@@ -77,44 +62,7 @@ def iter_events(session: Session, batch: int = 5000) -> Iterable[AuditEvent]:
         last_id = rows[-1].id
 
 
-def verify_chain(session: Session) -> ChainReport:
-    """Recompute every link; report the first broken one and every inconsistency."""
-    import json
-
-    report = ChainReport()
-    prev = GENESIS
-    expected_seq = 1
-    for ev in iter_events(session):
-        report.n_events += 1
-        problem = None
-        if ev.id != expected_seq:
-            problem = f"event sequence jumps from {expected_seq - 1} to {ev.id} (missing or deleted events)"
-        elif ev.prev_hash != prev:
-            problem = f"event {ev.id}: previous-hash link does not match event {ev.id - 1}"
-        elif link_hash(ev.prev_hash, ev.payload) != ev.hash:
-            problem = f"event {ev.id}: payload does not match its hash (altered)"
-        else:
-            try:
-                body = json.loads(ev.payload)
-            except ValueError:
-                body = {}
-            if body.get("seq") != ev.id or body.get("action") != ev.action \
-                    or body.get("entity_id") != ev.entity_id:
-                problem = f"event {ev.id}: columns disagree with the hashed payload (reordered or edited)"
-        if problem:
-            report.problems.append(problem)
-            if report.first_broken_seq is None:
-                report.first_broken_seq = ev.id
-        prev = ev.hash
-        expected_seq = ev.id + 1
-    report.head = prev
-    return report
-
-
 def chain_head(session: Session) -> str:
     last = session.exec(select(AuditEvent).order_by(AuditEvent.id.desc()).limit(1)).first()
     return last.hash if last else GENESIS
 
-
-def count_events(session: Session) -> int:
-    return session.exec(select(func.count()).select_from(AuditEvent)).one()

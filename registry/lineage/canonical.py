@@ -1,7 +1,15 @@
 """Canonical JSON and hashing: one byte-exact text for any payload.
 
+The one implementation for the audit chain, signatures and content hashes.
 Hashes are always computed over this text, never over what a database returns
 (PostgreSQL's JSONB reorders keys).
+
+Rules: object keys sorted (by code point), no spaces, non-ASCII kept as UTF-8,
+floats as Python ``repr`` (shortest round-trip form), numpy scalars and arrays
+as their Python values, enums as their values, datetimes as ISO-8601 UTC with
+microseconds and a ``Z``. It resembles RFC 8785 but is not it (number
+formatting differs). Ambiguous input is refused rather than guessed: naive
+datetimes, NaN/infinity, non-string keys, sets, bytes.
 """
 
 from __future__ import annotations
@@ -9,52 +17,77 @@ from __future__ import annotations
 import hashlib
 import json
 import math
+import uuid
+from collections.abc import Mapping
 from datetime import date, datetime, timezone
+from enum import Enum
 from typing import Any
 
 import numpy as np
 
+from ..errors import InputError
 
-def _default(obj: Any) -> Any:
+def utc_text(value: datetime, path: str) -> str:
+    if value.tzinfo is None or value.utcoffset() is None:
+        raise InputError(f"datetime at {path} has no time zone; cannot place it in UTC",
+                         field=path)
+    utc = value.astimezone(timezone.utc).replace(tzinfo=None)
+    return utc.isoformat(timespec="microseconds") + "Z"
+
+
+def _plain(obj: Any, path: str) -> Any:
+    """``obj`` as plain JSON types, refusing anything without one obvious form."""
+    if obj is None or isinstance(obj, (bool, np.bool_)):
+        return None if obj is None else bool(obj)
+    if isinstance(obj, Enum):
+        return _plain(obj.value, path)
+    if isinstance(obj, str):
+        return str(obj)
+    if isinstance(obj, (int, np.integer)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        value = float(obj)
+        if not math.isfinite(value):
+            raise InputError(f"{value} at {path} has no JSON form", field=path)
+        return value
     if isinstance(obj, datetime):
-        if obj.tzinfo is None:
-            obj = obj.replace(tzinfo=timezone.utc)
-        return obj.astimezone(timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+        return utc_text(obj, path)
     if isinstance(obj, date):
         return obj.isoformat()
-    if isinstance(obj, np.generic):
-        return obj.item()
+    if isinstance(obj, uuid.UUID):
+        return str(obj)
+    if isinstance(obj, Mapping):
+        out = {}
+        for key, value in obj.items():
+            if isinstance(key, Enum):
+                key = key.value
+            if not isinstance(key, str):
+                raise InputError(f"key {key!r} at {path} is not a string", field=path)
+            out[str(key)] = _plain(value, f"{path}.{key}")
+        return out
     if isinstance(obj, np.ndarray):
-        return obj.tolist()
-    if isinstance(obj, (set, frozenset)):
-        return sorted(obj)
-    if isinstance(obj, bytes):
-        return obj.hex()
-    raise TypeError(f"cannot put {type(obj).__name__} into canonical JSON")
-
-
-def _clean(obj: Any) -> Any:
-    # JSON has no NaN/Infinity; store them as strings so the text stays standard.
-    if isinstance(obj, float) and not math.isfinite(obj):
-        return repr(obj)
-    if isinstance(obj, dict):
-        return {str(k): _clean(v) for k, v in obj.items()}
+        return [_plain(v, f"{path}[{i}]") for i, v in enumerate(obj.tolist())]
     if isinstance(obj, (list, tuple)):
-        return [_clean(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _clean(obj.tolist())
-    if isinstance(obj, np.floating):
-        return _clean(float(obj))
-    return obj
+        return [_plain(v, f"{path}[{i}]") for i, v in enumerate(obj)]
+    raise InputError(f"value of type {type(obj).__name__} at {path} has no canonical JSON form",
+                     field=path)
 
 
 def canonical_json(obj: Any) -> str:
-    """Sorted keys, no spaces, UTF-8 text, datetimes as ISO-8601 UTC with ``Z``."""
-    return json.dumps(_clean(obj), sort_keys=True, separators=(",", ":"), ensure_ascii=False,
-                      default=_default, allow_nan=False)
+    """One fixed JSON text for ``obj``, so equal content always hashes equal.
+
+    Raises
+    ------
+    InputError
+        For values with no single obvious JSON form; ``field`` is the path
+        (``$.a[2].b``) to the offending value.
+    """
+    return json.dumps(_plain(obj, "$"), sort_keys=True, separators=(",", ":"),
+                      ensure_ascii=False, allow_nan=False)
 
 
 def sha256_hex(data: bytes | str) -> str:
+    """SHA-256 of ``data`` (text is encoded as UTF-8), lower-case hex."""
     if isinstance(data, str):
         data = data.encode("utf-8")
     return hashlib.sha256(data).hexdigest()

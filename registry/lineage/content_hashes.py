@@ -8,14 +8,12 @@ what the record says, never storage details such as row order.
 
 from __future__ import annotations
 
-import hashlib
-
 import numpy as np
 
 from ..spectra.record import content_sha256
 from ..storage.models import (CalibrationMember, CalibrationSet, ReferenceResult, Signature,
                               SpectralAxis, Spectrum, ValidationRecord)
-from .canonical import content_hash
+from .canonical import content_hash, sha256_hex
 
 
 def spectrum_hash(spectrum: Spectrum, axis: SpectralAxis) -> str:
@@ -38,7 +36,7 @@ def calibration_set_hash(cs: CalibrationSet, members: list[CalibrationMember]) -
 
 
 def artifact_hash(artifact: bytes) -> str:
-    return hashlib.sha256(artifact).hexdigest()
+    return sha256_hex(bytes(artifact))
 
 
 def validation_record_hash(v: ValidationRecord) -> str:

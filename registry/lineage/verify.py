@@ -28,7 +28,6 @@ from __future__ import annotations
 import hashlib
 import json
 import time
-from datetime import timezone
 from dataclasses import dataclass, field
 from typing import Any, Iterator
 
@@ -39,7 +38,9 @@ from ..spectra.axes import axis_sha256
 from ..storage.models import (AuditEvent, CalibrationMember, CalibrationSet, ModelVersion,
                               Prediction, ReferenceResult, Sample, Signature, SpectralAxis,
                               Spectrum, ValidationRecord)
+from ..storage.types import as_utc
 from .audit_chain import GENESIS, link_hash
+from .canonical import utc_text
 from .content_hashes import (artifact_hash, calibration_set_hash, reference_result_hash,
                              signature_hash, validation_record_hash)
 
@@ -137,12 +138,10 @@ class _Vouched:
 
 
 def _time_text(value) -> str:
-    # The same text canonical_json writes for a datetime (UTC, microseconds, "Z").
+    # The text canonical_json writes for a datetime; naive values read back are UTC.
     if value is None:
         return ""
-    if value.tzinfo is None:
-        value = value.replace(tzinfo=timezone.utc)
-    return value.astimezone(timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+    return utc_text(as_utc(value), "occurred_at")
 
 
 def _walk_chain(session: Session, report: VerifyReport, vouched: _Vouched) -> None:

@@ -20,6 +20,11 @@ def _user_count(session: Session) -> int:
     return session.exec(select(func.count()).select_from(User)).one()
 
 
+def is_empty(session: Session) -> bool:
+    """True while the registry has no user: the first one is added without logging in."""
+    return _user_count(session) == 0
+
+
 def add_user(session: Session, actor: Actor | None, name: str, roles: list[str], password: str,
              *, full_name: str = "") -> User:
     """Create a user. The first user of an empty registry needs no actor and must be an admin."""

@@ -235,6 +235,12 @@ def calibration_data(session: Session, cs: CalibrationSet, role: str | None = "c
     return X, np.asarray(y, dtype=np.float64), np.asarray(groups), axis_row, members
 
 
+def list_calibration_sets(session: Session, actor: Actor) -> list[dict]:
+    authorize(actor, Action.VIEW)
+    return [calset_summary(session, cs) for cs in
+            session.exec(select(CalibrationSet).order_by(CalibrationSet.id)).all()]
+
+
 def calset_summary(session: Session, cs: CalibrationSet) -> dict:
     prop = session.get(Property, cs.property_id)
     grade = session.get(Grade, cs.grade_id) if cs.grade_id else None

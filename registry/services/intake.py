@@ -422,3 +422,16 @@ def export_spectra(session: Session, actor: Actor, sample_ids: list[str], *, fmt
 
 def _safe(name: str) -> str:
     return "".join(c if c.isalnum() or c in "-_." else "_" for c in name)[:80] or "sample"
+
+
+def spectra_of_samples(session: Session, actor: Actor, sample_ids: list[str]) -> list[int]:
+    """Ids of the stored spectra of the named samples, in storage order."""
+    from ..storage.models import Spectrum
+
+    authorize(actor, Action.VIEW)
+    out: list[int] = []
+    for start in range(0, len(sample_ids), 900):
+        part = sample_ids[start:start + 900]
+        out += session.exec(select(Spectrum.id).join(Sample, Sample.id == Spectrum.sample_id)
+                            .where(Sample.external_id.in_(part))).all()
+    return sorted(out)

@@ -11,7 +11,7 @@ import threading
 
 import pytest
 
-from registry.lineage.audit_chain import verify_chain
+from registry.lineage.verify import verify_registry as verify_chain
 from registry.services import admin
 from registry.services.auth import actor_of
 from registry.storage.engine import make_engine, session_scope

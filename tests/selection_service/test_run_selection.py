@@ -17,7 +17,7 @@ from sqlmodel import func, select
 
 from registry import catalog
 from registry.errors import InputError, NotFoundError, PermissionDenied
-from registry.lineage.audit_chain import verify_chain
+from registry.lineage.verify import verify_registry as verify_chain
 from registry.lineage.canonical import content_hash
 from registry.selection import SelectionSpace, kennard_stone
 from registry.services import admin, references
