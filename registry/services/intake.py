@@ -8,7 +8,6 @@ CSV files are streamed chunk by chunk, so memory is bounded by one chunk.
 from __future__ import annotations
 
 import functools
-import hashlib
 import os
 from dataclasses import dataclass, field
 from datetime import datetime
@@ -23,7 +22,10 @@ from ..lifecycle.permissions import Action
 from ..spectra.axes import WAVENUMBER
 from ..spectra.formats import detect_format, iter_csv_spectra, read_jcamp
 from ..storage.models import Grade, Instrument, Sample, Site
-from ..storage.spectra_store import existing_hashes, get_or_create_axis, insert_spectra
+from ..spectra.record import content_sha256_rows
+from ..storage.bulk import insert_rows, select_in
+from ..storage.spectra_store import (SPECTRUM_COLUMNS, existing_hashes, get_or_create_axis,
+                                     insert_spectra)
 from ..storage.types import utcnow
 from .context import Actor, audit, authorize
 from . import parse_ahead
@@ -31,6 +33,9 @@ from .references import MAX_REPORTED_ERRORS, ImportRejected
 from .timeparse import parse_time
 
 SPECTRUM_SUFFIXES = {".jdx", ".dx", ".jcamp", ".jcm", ".csv", ".tsv", ".txt"}
+_SAMPLE, _SHA = SPECTRUM_COLUMNS.index("sample_id"), SPECTRUM_COLUMNS.index("sha256")
+_SAMPLE_COLUMNS = ("site_id", "external_id", "grade_id", "batch", "source", "taken_at",
+                   "created_at")
 
 
 @dataclass
@@ -43,6 +48,8 @@ class Batch:
     sample_ids: list[str]
     metadata: list[dict]
     lines: list[int | None]
+    #: Content hashes of the rows when the producer computed them (a parsing child does).
+    digests: list[str] | None = None
 
 
 @dataclass
@@ -94,26 +101,39 @@ def read_batches(path: Path, fmt: str = "auto", *, chunk_rows: int = 1000,
         raise InputError(f"unknown format {fmt!r}; use auto, jcamp or csv", field="--format")
 
 
+#: Shares of a large CSV file parsed by this process (the first) and by a child process.
+#: This process also stores every spectrum, so it parses the smaller share, and only
+#: while the child has no batch ready (see parse_ahead.interleaved). A second child was
+#: slower on two cores: three busy processes, and pandas' cost per parse call paid thrice.
+_WINDOW_SHARES = (0.35, 0.65)
+
+
 def _batches(path: Path, fmt: str, chunk_rows: int, sample_id_field: str) -> Iterator[Batch]:
-    """The file's batches; a large wide CSV file is parsed in two windows by child processes
-    (see :mod:`.parse_ahead`), otherwise inline."""
+    """The file's batches; a large wide CSV file is parsed in two windows, by this process
+    and a child at once (see :mod:`.parse_ahead`), otherwise inline."""
     from ..spectra.formats.csv_matrix import split_wide_csv
 
     if parse_ahead.use_children(path) and (fmt == "csv" or (fmt == "auto" and
                                                            detect_format(path) == "csv")):
-        windows = split_wide_csv(path, 2)
+        windows = split_wide_csv(path, _WINDOW_SHARES, count_lines=False)
         if windows:
-            producers = [functools.partial(_window_batches, path, w, chunk_rows) for w in windows]
-            yield from parse_ahead.interleaved(producers)
+            mine, *theirs = windows
+            producers = [functools.partial(_window_batches, path, w, chunk_rows) for w in theirs]
+            # Parsed here in small pieces: a big one would keep the child waiting on its pipe.
+            local = functools.partial(_window_batches, path, mine, chunk_rows, 2 * chunk_rows)
+            yield from parse_ahead.interleaved(producers, local=local)
             return
     yield from read_batches(path, fmt, chunk_rows=chunk_rows, sample_id_field=sample_id_field)
 
 
-def _window_batches(path: Path, window: tuple[int, int, int], chunk_rows: int) -> Iterator[Batch]:
+def _window_batches(path: Path, window: tuple, chunk_rows: int,
+                    parse_rows: int | None = None) -> Iterator[Batch]:
     label = str(path)
-    for chunk in iter_csv_spectra(path, chunk_rows=chunk_rows, file_label=label, window=window):
+    for chunk in iter_csv_spectra(path, chunk_rows=chunk_rows, file_label=label, window=window,
+                                  parse_rows=parse_rows):
+        # Hashing here spreads it over the parsing processes instead of the storing one.
         yield Batch(label, chunk.axis, chunk.Y, list(chunk.sample_ids), list(chunk.metadata),
-                    list(chunk.first_line))
+                    list(chunk.first_line), content_sha256_rows(chunk.axis, chunk.Y))
 
 
 def _group_records(label: str, recs: list) -> Iterator[Batch]:
@@ -152,23 +172,17 @@ class _Context:
     def _load(self, keys: list[tuple[int, str]]) -> None:
         """Cache the stored samples among ``keys`` (batched by site; the external-id index
         serves ``IN``, which a row-value ``IN`` does not on SQLite)."""
-        t = Sample.__table__
         by_site: dict[int, list[str]] = {}
         for site_id, ext in keys:
             by_site.setdefault(site_id, []).append(ext)
         for site_id, exts in by_site.items():
-            for start in range(0, len(exts), 900):
-                part = exts[start:start + 900]
-                for row in self.session.execute(
-                        select(t.c.id, t.c.site_id, t.c.external_id, t.c.grade_id)
-                        .where(t.c.site_id == site_id, t.c.external_id.in_(part))):
-                    self.samples[(row.site_id, row.external_id)] = _SampleRef(
-                        row.id, row.site_id, row.external_id, row.grade_id)
+            for sid, ext, grade_id in select_in(self.session, Sample.__table__,
+                                                ["id", "external_id", "grade_id"], "external_id",
+                                                exts, where={"site_id": site_id}):
+                self.samples[(site_id, ext)] = _SampleRef(sid, site_id, ext, grade_id)
 
     def resolve_samples(self, wanted: dict[tuple[int, str], Grade | None]) -> dict[tuple[int, str], int]:
         """Sample ids for (site, external id) keys, creating missing samples in one batch."""
-        from sqlalchemy import insert
-
         self._load([k for k in wanted if k not in self.samples])
         to_create = [k for k in wanted if k not in self.samples]
         if to_create:
@@ -176,11 +190,9 @@ class _Context:
             rows = []
             for site_id, ext in to_create:
                 batch, source, taken = self.sample_details.get((site_id, ext), ("", "", None))
-                rows.append({"site_id": site_id, "external_id": ext,
-                             "grade_id": wanted[(site_id, ext)].id if wanted[(site_id, ext)] else None,
-                             "batch": batch, "source": source,
-                             "taken_at": taken, "created_at": now})
-            self.session.execute(insert(Sample.__table__), rows)
+                grade = wanted[(site_id, ext)]
+                rows.append((site_id, ext, grade.id if grade else None, batch, source, taken, now))
+            insert_rows(self.session, Sample.__table__, _SAMPLE_COLUMNS, rows)
             self._load(to_create)
             self.created_samples += len(to_create)
         return {k: self.samples[k].id for k in wanted}
@@ -224,7 +236,7 @@ def import_spectra(session: Session, actor: Actor, paths: list[str | Path], *,
                 rows = _prepare(ctx, batch, errors, seen, on_duplicate, per, now, actor)
                 if rows and not errors:
                     ids = insert_spectra(session, rows)
-                    vouched += [(i, r["sha256"]) for i, r in zip(ids, rows)]
+                    vouched += [(i, r[_SHA]) for i, r in zip(ids, rows)]
                     per["imported"] += len(ids)
                 if progress:
                     progress(sum(p["imported"] + p["skipped"] for p in summary.per_file.values()),
@@ -256,17 +268,14 @@ def import_spectra(session: Session, actor: Actor, paths: list[str | Path], *,
 
 
 def _prepare(ctx: _Context, batch: Batch, errors: list, seen: set, on_duplicate: str,
-             per: dict, now: datetime, actor: Actor) -> list[dict]:
-    """Validate one batch and build its rows; problems go to ``errors``."""
+             per: dict, now: datetime, actor: Actor) -> list[list]:
+    """Validate one batch and build its rows (:data:`SPECTRUM_COLUMNS` order); problems go
+    to ``errors``."""
     session = ctx.session
     axis_row = get_or_create_axis(session, batch.axis)
-    axis_prefix = hashlib.sha256(np.ascontiguousarray(batch.axis, dtype="<f8").tobytes())
     Y = np.ascontiguousarray(batch.Y, dtype="<f4")
-    digests = []
-    for i in range(Y.shape[0]):
-        h = axis_prefix.copy()
-        h.update(Y[i].tobytes())
-        digests.append(h.hexdigest())
+    digests = batch.digests if batch.digests is not None else content_sha256_rows(batch.axis, Y)
+    source_file = os.path.basename(batch.file)[:400]
     stored = existing_hashes(session, digests)
     rows = []
     pending: list[tuple[tuple[int, str], Grade | None]] = []
@@ -332,11 +341,8 @@ def _prepare(ctx: _Context, batch: Batch, errors: list, seen: set, on_duplicate:
         pending.append((key, grade))
         ctx.sample_details.setdefault(key, (str(meta.get("batch") or "")[:120],
                                             str(meta.get("source") or "")[:200], taken_at))
-        rows.append({"sample_id": key, "instrument_id": inst.id, "axis_id": axis_row.id,
-                     "acquired_at": acquired_at, "data": Y[i].tobytes(), "sha256": digest,
-                     "source_file": os.path.basename(batch.file)[:400],
-                     "operator": str(meta.get("operator") or "")[:120],
-                     "imported_by_id": actor.id, "created_at": now})
+        rows.append([key, inst.id, axis_row.id, acquired_at, Y[i].tobytes(), digest, source_file,
+                     str(meta.get("operator") or "")[:120], actor.id, now])
     if errors or not rows:
         return []
     wanted: dict[tuple[int, str], Grade | None] = {}
@@ -351,7 +357,7 @@ def _prepare(ctx: _Context, batch: Batch, errors: list, seen: set, on_duplicate:
                                      field="grade", file=batch.file))
             return []
     for r in rows:
-        r["sample_id"] = ids[r["sample_id"]]
+        r[_SAMPLE] = ids[r[_SAMPLE]]
     return rows
 
 

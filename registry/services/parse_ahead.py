@@ -1,12 +1,13 @@
 """Parse large spectrum files in child processes while this process stores what is parsed.
 
-Parsing (pandas' tokenizer and the numeric checks) and storing (hashing, inserts)
-each take a large share of a big import, and threads do not overlap them (the
-parser holds the GIL much of the time). A large wide-form CSV file is therefore cut
-into whole-line windows, each parsed by a forked child that hands over batches of at
-most ``chunk_rows`` spectra through a small queue; this process takes one batch from
-each child in turn. Memory stays a few chunks per child; the children only read the
-file and never touch the database.
+Parsing (pandas' tokenizer, the numeric checks, hashing) and storing (inserts) each
+take a large share of a big import, and threads do not overlap them (the parser holds
+the GIL much of the time). A large wide-form CSV file is therefore cut into whole-line
+windows: forked children parse theirs and hand over batches of at most ``chunk_rows``
+spectra through pipes, while this process stores every batch that is ready and, when
+none is, parses a chunk of its own window instead of waiting (a child needs a few
+tenths of a second before its first batch). Memory stays a few chunks per process; the
+children only read the file and never touch the database.
 
 Errors are sent as plain fields and raised again here with the same file, line and
 field, so a bad file reads as it would without the children.
@@ -18,6 +19,7 @@ import multiprocessing as mp
 import os
 import queue
 import threading
+from multiprocessing.connection import wait
 from typing import Callable, Iterator
 
 from ..errors import FormatError, InputError, RegistryError
@@ -27,15 +29,33 @@ PARALLEL_MIN_BYTES = 32 * 2**20
 _DONE, _ERROR, _ITEM = "done", "error", "item"
 
 
-def _child(produce: Callable[[], Iterator], q) -> None:
+def _child(produce: Callable[[], Iterator], conn, depth: int) -> None:
+    """Run ``produce`` and send its items; a feeding thread writes to the pipe so that
+    parsing the next chunk goes on while this one waits for the reader."""
+    out: queue.Queue = queue.Queue(maxsize=depth)
+
+    def feed() -> None:
+        while True:
+            message = out.get()
+            try:
+                conn.send(message)
+            except (BrokenPipeError, OSError):  # the reader gave up; nothing to report to
+                return
+            if message[0] != _ITEM:
+                return
+
+    feeder = threading.Thread(target=feed, daemon=True)
+    feeder.start()
     try:
         for item in produce():
-            q.put((_ITEM, item))
-        q.put((_DONE, None))
+            out.put((_ITEM, item))
+        out.put((_DONE, None))
     except InputError as exc:
-        q.put((_ERROR, (type(exc).__name__, exc.message, exc.file, exc.line, exc.field)))
+        out.put((_ERROR, (type(exc).__name__, exc.message, exc.file, exc.line, exc.field)))
     except Exception as exc:  # anything else: reported, never a silent partial import
-        q.put((_ERROR, ("RegistryError", f"{type(exc).__name__}: {exc}", None, None, None)))
+        out.put((_ERROR, ("RegistryError", f"{type(exc).__name__}: {exc}", None, None, None)))
+    feeder.join()
+    conn.close()
 
 
 def _rebuild(kind: str, message: str, file, line, field) -> Exception:
@@ -57,40 +77,53 @@ def use_children(path) -> bool:
         return False
 
 
-def interleaved(producers: list[Callable[[], Iterator]], *, depth: int = 2) -> Iterator:
-    """Items of every producer, one from each in turn, each producer run in a forked child."""
+def interleaved(producers: list[Callable[[], Iterator]], *,
+                local: Callable[[], Iterator] | None = None, depth: int = 2) -> Iterator:
+    """Items of every producer, each run in a forked child, as they become ready; items of
+    ``local`` (run here) whenever no child has one ready. Order between producers is
+    not kept; within a producer it is."""
     ctx = mp.get_context("fork")
-    channels = []
+    children = []  # (process, receiving end)
     try:
         for k, produce in enumerate(producers):
-            q = ctx.Queue(maxsize=depth)
-            child = ctx.Process(target=_child, args=(produce, q), daemon=True,
+            receiver, sender = ctx.Pipe(duplex=False)
+            child = ctx.Process(target=_child, args=(produce, sender, depth), daemon=True,
                                 name=f"specledger-parse-{k}")
             child.start()
-            channels.append((child, q))
-        live = list(channels)
-        while live:
-            for child, q in list(live):
-                kind, payload = _take(child, q)
-                if kind == _DONE:
-                    live.remove((child, q))
-                elif kind == _ERROR:
-                    raise _rebuild(*payload)
-                else:
+            sender.close()  # the child's end; closing ours lets a dead child show as EOF
+            children.append((child, receiver))
+        mine = iter(local()) if local is not None else None
+        live = dict((receiver, child) for child, receiver in children)
+        while live or mine is not None:
+            ready = wait(list(live), timeout=0)
+            if not ready and mine is not None:
+                try:
+                    yield next(mine)
+                except StopIteration:
+                    mine = None
+                continue
+            if not ready:
+                ready = wait(list(live))
+            for receiver in ready:
+                kind, payload = _receive(receiver, live[receiver])
+                if kind == _ITEM:
                     yield payload
+                elif kind == _DONE:
+                    del live[receiver]
+                else:
+                    raise _rebuild(*payload)
     finally:
-        for child, q in channels:
+        for child, receiver in children:
             if child.is_alive():
                 child.terminate()
             child.join(timeout=5)
-            q.close()
+            receiver.close()
 
 
-def _take(child, q):
-    while True:
-        try:
-            return q.get(timeout=1.0)
-        except queue.Empty:
-            if not child.is_alive() and q.empty():
-                raise RegistryError(f"a parser process stopped unexpectedly "
-                                    f"(exit code {child.exitcode})") from None
+def _receive(receiver, child):
+    try:
+        return receiver.recv()
+    except (EOFError, OSError):
+        child.join(timeout=5)
+        raise RegistryError(f"a parser process stopped unexpectedly "
+                            f"(exit code {child.exitcode})") from None

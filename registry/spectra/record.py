@@ -34,6 +34,21 @@ def content_sha256(x, y) -> str:
     return digest.hexdigest()
 
 
+def content_sha256_rows(x, Y) -> list[str]:
+    """:func:`content_sha256` of each row of ``Y`` (all on axis ``x``), hashing the axis once."""
+    axis = np.ascontiguousarray(x, dtype="<f8")
+    data = np.ascontiguousarray(Y, dtype="<f4")
+    if axis.ndim != 1 or data.ndim != 2 or data.shape[1] != axis.size:
+        raise InputError(f"axis shape {axis.shape} and data shape {data.shape} differ", field="y")
+    prefix = hashlib.sha256(axis.tobytes())
+    out = []
+    for row in data:
+        digest = prefix.copy()
+        digest.update(row.tobytes())
+        out.append(digest.hexdigest())
+    return out
+
+
 @dataclass
 class SpectrumRecord:
     """A spectrum with its sample identity and where it came from.

@@ -10,12 +10,13 @@ from __future__ import annotations
 from typing import Iterable, Sequence
 
 import numpy as np
-from sqlalchemy import insert, select
+from sqlalchemy import select
 from sqlmodel import Session
 
 from ..errors import InputError, IntegrityError
 from ..spectra.axes import axis_sha256
 from ..spectra.record import content_sha256
+from .bulk import insert_rows, select_in
 from .models import SpectralAxis, Spectrum
 
 
@@ -41,25 +42,28 @@ def axis_values(axis: SpectralAxis) -> np.ndarray:
 
 def existing_hashes(session: Session, digests: Sequence[str]) -> dict[str, int]:
     """Which of ``digests`` are already stored, mapped to their spectrum id."""
-    out: dict[str, int] = {}
-    digests = list(digests)
-    for start in range(0, len(digests), 900):  # stay below SQLite's bound-parameter limit
-        part = digests[start:start + 900]
-        for sid, digest in session.execute(select(Spectrum.id, Spectrum.sha256)
-                                           .where(Spectrum.sha256.in_(part))):
-            out[digest] = sid
-    return out
+    rows = select_in(session, Spectrum.__table__, ["sha256", "id"], "sha256", digests)
+    return {digest: int(sid) for digest, sid in rows}
 
 
-def insert_spectra(session: Session, rows: list[dict]) -> list[int]:
-    """Insert prepared spectrum rows in one statement batch; returns their ids in order."""
+#: Columns of a spectrum row as :func:`insert_spectra` takes them, in order.
+SPECTRUM_COLUMNS = ("sample_id", "instrument_id", "axis_id", "acquired_at", "data", "sha256",
+                    "source_file", "operator", "imported_by_id", "created_at")
+
+
+def insert_spectra(session: Session, rows: list[tuple]) -> list[int]:
+    """Insert spectrum rows (tuples in :data:`SPECTRUM_COLUMNS` order) in one executemany;
+    returns their ids in order.
+
+    Ids are read back by content hash, which is unique: SQLite's RETURNING would run row
+    by row, and a row-by-row insert costs more than the hash lookup.
+    """
     if not rows:
         return []
-    # Core executemany without RETURNING (SQLite's RETURNING path runs row by row); ids are
-    # then read back by content hash, which is unique.
-    session.execute(insert(Spectrum.__table__), rows)
-    found = existing_hashes(session, [r["sha256"] for r in rows])
-    return [found[r["sha256"]] for r in rows]
+    insert_rows(session, Spectrum.__table__, SPECTRUM_COLUMNS, rows)
+    at = SPECTRUM_COLUMNS.index("sha256")
+    found = existing_hashes(session, [r[at] for r in rows])
+    return [found[r[at]] for r in rows]
 
 
 def load_matrix(session: Session, spectrum_ids: Sequence[int], *, verify: bool = False,

@@ -17,7 +17,7 @@ from registry.errors import InputError
 from registry.spectra.axes import (axis_sha256, canonical_x_unit, convert_axis_to_wavenumber,
                                    normalise_ascending, resample, same_axis,
                                    transmittance_to_absorbance)
-from registry.spectra.record import SpectrumRecord, content_sha256
+from registry.spectra.record import SpectrumRecord, content_sha256, content_sha256_rows
 
 
 def test_descending_axis_is_flipped_with_the_spectra():
@@ -65,6 +65,12 @@ def test_content_hash_layout():
     y2 = np.array(y, dtype=np.float32)
     y2[0] = np.nextafter(y2[0], np.float32(1))  # one float32 ulp changes the digest
     assert content_sha256(x, y2) != expected
+    # Many rows on one axis at once (the axis hashed once): the same layout, row by row.
+    rows = np.array([y, y2], dtype=">f4")
+    assert content_sha256_rows(np.array(x), rows) == [
+        expected, hashlib.sha256(struct.pack("<2d", *x) + struct.pack("<2f", *y2)).hexdigest()]
+    with pytest.raises(InputError):
+        content_sha256_rows(x, np.zeros((2, 3), dtype=np.float32))
 
 
 def test_same_axis():

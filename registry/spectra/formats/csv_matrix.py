@@ -28,7 +28,7 @@ import re
 import warnings
 from dataclasses import dataclass
 from datetime import date, datetime
-from typing import Iterable, Iterator
+from typing import Iterable, Iterator, Sequence
 
 import numpy as np
 import pandas as pd
@@ -44,6 +44,7 @@ _LONG_FORM_ROWS = 65536  # rows per pandas chunk in long form
 # whole-file read (tests/benchmarks/bench_csv_parse.py).  Parse in blocks of
 # about this many bytes of float64 cells and cut them into chunk_rows chunks.
 _PARSE_BYTES = 64 * 2**20
+_FIRST_ROWS = 1000  # first chunk of a window parsed for another process (see _read_chunks)
 
 
 @dataclass
@@ -157,8 +158,13 @@ class _Window:
         self._fh.close()
 
 
-def _read_chunks(path, header: _Header, rows: int, window: tuple[int, int, int] | None = None):
+def _read_chunks(path, header: _Header, rows: int, window: tuple[int, int, int] | None = None,
+                 first_rows: int | None = None):
     """pandas C-engine chunks; text columns as strings, number columns inferred.
+
+    ``first_rows`` makes the first chunk smaller than ``rows``, and each next one twice
+    the last, up to ``rows``, so that a consumer in another process gets spectra early
+    and then steadily, while the later, larger chunks keep pandas' cost per chunk low.
 
     ``window`` = (start byte, end byte, file line of the first byte) limits the parse to
     whole lines of part of the file (see :func:`split_wide_csv`); line numbers in errors
@@ -186,9 +192,11 @@ def _read_chunks(path, header: _Header, rows: int, window: tuple[int, int, int] 
                 with warnings.catch_warnings():
                     warnings.simplefilter("error", pd.errors.ParserWarning)
                     try:
-                        frame = next(reader)
+                        frame = reader.get_chunk(first_rows or rows)
                     except StopIteration:
                         return
+                if first_rows:
+                    first_rows = first_rows * 2 if first_rows * 2 < rows else None
                 if len(frame):
                     yield frame
     except pd.errors.ParserWarning:
@@ -269,7 +277,8 @@ def _metadata_rows(frame: pd.DataFrame, header: _Header) -> list[dict]:
 def iter_csv_spectra(path, *, chunk_rows: int = 1000, delimiter: str | None = None,
                      x_unit: str = WAVENUMBER, sample_id_column: str = "sample_id",
                      file_label: str | None = None,
-                     window: tuple[int, int, int] | None = None) -> Iterator[CsvChunk]:
+                     window: tuple[int, int, int | None] | None = None,
+                     parse_rows: int | None = None) -> Iterator[CsvChunk]:
     """Stream the spectra of a CSV file, ``chunk_rows`` spectra at a time.
 
     Parameters
@@ -287,6 +296,15 @@ def iter_csv_spectra(path, *, chunk_rows: int = 1000, delimiter: str | None = No
         Name of the sample id column (case-insensitive).
     file_label : str, optional
         Name used in errors and ``source_file``.
+    window : (int, int, int or None), optional
+        Read only whole lines from byte ``start`` to ``end`` of a wide-form file, the
+        first of them being file line ``line`` (counted when None); see
+        :func:`split_wide_csv`. Line numbers in errors stay those of the file.
+    parse_rows : int, optional
+        Rows per pandas parse call. By default as many as fit in about 64 MB of cells
+        (pandas has a large fixed cost per call with thousands of columns); a window
+        starts with a few hundred rows and doubles, so a reader in another process gets
+        its first spectra early.
 
     Yields
     ------
@@ -310,9 +328,12 @@ def iter_csv_spectra(path, *, chunk_rows: int = 1000, delimiter: str | None = No
         # One part of a wide file (split_wide_csv); an empty part is fine.
         if not header.wide:
             raise InputError("only wide-form CSV files can be read in parts", field="window")
-        yield from _iter_wide(path, header, chunk_rows, unit, window)
+        if window[2] is None:
+            window = (window[0], window[1], _line_at(path, window[0]))
+        yield from _iter_wide(path, header, chunk_rows, unit, window, parse_rows)
         return
-    chunks = (_iter_wide if header.wide else _iter_long)(path, header, chunk_rows, unit)
+    chunks = (_iter_wide(path, header, chunk_rows, unit, parse_rows=parse_rows) if header.wide
+              else _iter_long(path, header, chunk_rows, unit))
     empty = True
     for chunk in chunks:
         empty = False
@@ -321,44 +342,56 @@ def iter_csv_spectra(path, *, chunk_rows: int = 1000, delimiter: str | None = No
         raise FormatError("no spectra after the header line", file=label, line=2)
 
 
-def split_wide_csv(path, parts: int, *, delimiter: str | None = None,
-                   sample_id_column: str = "sample_id") -> list[tuple[int, int, int]] | None:
-    """Cut a wide-form CSV file into ``parts`` windows of whole lines.
+def split_wide_csv(path, parts: int | Sequence[float], *, delimiter: str | None = None,
+                   sample_id_column: str = "sample_id",
+                   count_lines: bool = True) -> list[tuple[int, int, int | None]] | None:
+    """Cut a wide-form CSV file into windows of whole lines.
 
-    Returns ``[(start byte, end byte, file line of start), ...]`` covering the file (the
-    first window starts at byte 0 and includes the header), for
-    ``iter_csv_spectra(..., window=...)``; None for a long-form file, whose samples
-    span rows and must not be cut.
+    ``parts`` is a number of equal windows or a list of relative sizes. Returns
+    ``[(start byte, end byte, file line of start), ...]`` covering the file (the first
+    window starts at byte 0 and includes the header), for
+    ``iter_csv_spectra(..., window=...)``; None for a long-form file, whose samples span
+    rows and must not be cut. Without ``count_lines`` the line of every window but the
+    first is None, and whoever reads that window counts the lines before it (reading
+    the file once more, which a parallel reader can afford better than the caller).
     """
     header = _Header(path, os.fspath(path), delimiter, sample_id_column)
-    if not header.wide or parts < 2:
+    shares = [1.0] * parts if isinstance(parts, int) else [float(w) for w in parts]
+    if not header.wide or len(shares) < 2 or min(shares) <= 0:
         return None
     size = os.path.getsize(path)
     cuts = [0]
     with open(path, "rb") as fh:
-        for k in range(1, parts):
-            fh.seek(max(size * k // parts, cuts[-1]))
+        done = 0.0
+        for share in shares[:-1]:
+            done += share
+            fh.seek(max(int(size * done / sum(shares)), cuts[-1]))
             fh.readline()  # to the start of the next whole line
             cuts.append(min(fh.tell(), size))
     cuts.append(size)
-    windows, line = [], 1
-    with open(path, "rb") as fh:
-        for a, b in zip(cuts, cuts[1:]):
-            windows.append((a, b, line))
-            fh.seek(a)
-            left = b - a
-            while left > 0:  # count the lines of this window for the next one's numbering
-                block = fh.read(min(left, 1 << 22))
-                if not block:
-                    break
-                line += block.count(b"\n")
-                left -= len(block)
+    windows = [(a, b) for a, b in zip(cuts, cuts[1:])]
+    if not count_lines:
+        return [(a, b, 2 if a == 0 else None) for a, b in windows]
     # The first window's rows start on line 2 (after the header); later ones where they begin.
-    return [(a, b, 2 if a == 0 else first) for a, b, first in windows]
+    return [(a, b, 2 if a == 0 else _line_at(path, a)) for a, b in windows]
+
+
+def _line_at(path, offset: int) -> int:
+    """File line (1-based) that starts at byte ``offset``."""
+    line, left = 1, offset
+    with open(path, "rb") as fh:
+        while left > 0:
+            block = fh.read(min(left, 1 << 22))
+            if not block:
+                break
+            line += block.count(b"\n")
+            left -= len(block)
+    return line
 
 
 def _iter_wide(path, header: _Header, chunk_rows: int, unit: str,
-               window: tuple[int, int, int] | None = None) -> Iterator[CsvChunk]:
+               window: tuple[int, int, int] | None = None,
+               parse_rows: int | None = None) -> Iterator[CsvChunk]:
     raw_axis = np.array([float(header.names[i]) for i in header.axis_pos])
     try:
         axis, order = normalise_ascending(raw_axis, np.arange(raw_axis.size), file=header.file,
@@ -370,9 +403,12 @@ def _iter_wide(path, header: _Header, chunk_rows: int, unit: str,
     columns = [header.axis_pos[i] for i in order]  # file columns in ascending-axis order
     # text cells cost a Python string each (~64 bytes), numbers 8 bytes
     row_bytes = 8 * len(columns) + 64 * (1 + len(header.meta_pos))
-    read_rows = max(chunk_rows, _PARSE_BYTES // row_bytes)
+    read_rows = parse_rows or max(chunk_rows, _PARSE_BYTES // row_bytes)
     next_line = 2 if window is None else window[2]
-    for frame in _read_chunks(path, header, read_rows, window):
+    # In a window (a child process feeding the storing process), start with one small
+    # chunk so the consumer has work while the rest is parsed.
+    first_rows = min(_FIRST_ROWS, read_rows) if window is not None and not parse_rows else None
+    for frame in _read_chunks(path, header, read_rows, window, first_rows):
         first_line = next_line
         next_line += len(frame)
         ids = _text_column(frame, header.sample_pos)
