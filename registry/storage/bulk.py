@@ -52,6 +52,21 @@ def insert_rows(session: Session, table: Table, columns: Sequence[str],
     session.flush()  # ORM objects this batch may refer to must exist first
     dialect = session.connection().dialect
     by_column = [list(col) for col in zip(*rows)]
+    columns = list(columns)
+    # Columns left out get their model default, as the ORM would give them (a column added
+    # to a table later must not arrive NULL through this path).
+    for column in table.columns:
+        if column.name in columns or column.primary_key:
+            continue
+        if column.default is None:
+            if not column.nullable and column.server_default is None:
+                raise ValueError(f"insert_rows into {table.name}: no value for {column.name}")
+            continue
+        if not column.default.is_scalar:
+            raise ValueError(f"insert_rows into {table.name}: {column.name} has a computed "
+                             "default; pass its value")
+        columns.append(column.name)
+        by_column.append([column.default.arg] * len(rows))
     for k, name in enumerate(columns):
         # dialect_impl: the type as this dialect stores it (SQLite: datetimes as fixed text)
         column_type = table.c[name].type.dialect_impl(dialect)

@@ -89,3 +89,16 @@ def test_new_sqlite_files_get_the_large_page_size_and_old_ones_keep_theirs(tmp_p
             assert conn.exec_driver_sql("PRAGMA journal_mode").scalar() == "wal"
     finally:
         engine.dispose()
+
+
+def test_left_out_columns_get_the_model_default_and_required_ones_are_refused(sqlite_url):
+    engine = make_engine(sqlite_url)
+    try:
+        with session_scope(engine) as s:
+            insert_rows(s, Site.__table__, ["name", "created_at"],
+                        [("Default zone", datetime.now(timezone.utc))])
+            assert s.exec(select(Site).where(Site.name == "Default zone")).one().timezone == "UTC"
+            with pytest.raises(ValueError, match="no value for created_at"):
+                insert_rows(s, Site.__table__, ["name"], [("No time",)])
+    finally:
+        engine.dispose()
