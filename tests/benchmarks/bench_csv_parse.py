@@ -10,7 +10,10 @@ with %.9g, four metadata columns) to a temporary directory, then times
 Each is timed several times, interleaved, and the best time kept. Peak
 memory is the peak resident set size (VmHWM) of a fresh child process doing
 only that read, minus its size after imports.
-Goal: ours within ~1.3× of the reference time.
+Our own target (no issue sets one; the issue's goal is the whole import, see
+bench_intake.py): ours within ~1.3× of the reference time. Since pandas 3.1 the reference
+parses a whole file from a path with several threads, which a chunked read cannot use, so the
+ratio against pandas on one thread is printed too.
 
 Run: ``python tests/benchmarks/bench_csv_parse.py [n_spectra] [n_points]``.
 """
@@ -58,6 +61,14 @@ def read_pandas(path: Path) -> int:
     return len(pd.read_csv(path, engine="c"))
 
 
+def read_pandas_serial(path: Path) -> int:
+    try:
+        with pd.option_context("mode.max_threads", 1):
+            return len(pd.read_csv(path, engine="c"))
+    except (KeyError, ValueError):  # pandas before 3.1: no such option, always one thread
+        return len(pd.read_csv(path, engine="c"))
+
+
 def read_ours(path: Path) -> int:
     return sum(len(chunk) for chunk in iter_csv_spectra(path))
 
@@ -102,9 +113,10 @@ def main() -> None:
         make_file(path, n_spectra, n_points)
         print(f"wrote {n_spectra} x {n_points} CSV ({path.stat().st_size / 1e6:.0f} MB) "
               f"in {time.perf_counter() - t0:.1f} s")
-        best = {"pandas": float("inf"), "ours": float("inf")}
+        best = {"pandas": float("inf"), "pandas1": float("inf"), "ours": float("inf")}
         for _ in range(REPEATS):
-            for kind, reader in (("pandas", read_pandas), ("ours", read_ours)):
+            for kind, reader in (("pandas", read_pandas), ("pandas1", read_pandas_serial),
+                                 ("ours", read_ours)):
                 t0 = time.perf_counter()
                 rows = reader(path)
                 best[kind] = min(best[kind], time.perf_counter() - t0)
@@ -112,7 +124,9 @@ def main() -> None:
         ratio = best["ours"] / best["pandas"]
         print(f"pandas.read_csv (C engine, whole file): {best['pandas']:.2f} s")
         print(f"iter_csv_spectra (validated, chunks of 1000): {best['ours']:.2f} s")
-        print(f"ratio ours/pandas: {ratio:.2f} (goal <= 1.3)")
+        print(f"pandas.read_csv on one thread: {best['pandas1']:.2f} s")
+        print(f"ratio ours/pandas: {ratio:.2f}; ours/pandas on one thread: "
+              f"{best['ours'] / best['pandas1']:.2f} (own target <= 1.3, not an issue goal)")
         peak_pandas = child_peak("pandas", path)
         peak_ours = child_peak("ours", path)
         print(f"peak RSS growth: pandas {peak_pandas:.0f} MB, ours {peak_ours:.0f} MB "
