@@ -11,6 +11,7 @@ import typer
 
 from ..errors import InputError
 from ..services import selection as svc
+from ..services import selection_runs as runs
 from ..services.models import read_recipe
 from ..services.timeparse import parse_time
 from .common import AsOpt, DbOpt, FormatOpt, emit, handle_errors, login, table, transaction
@@ -111,7 +112,7 @@ def select_command(
     finally:
         bars.close()
     if out is not None:
-        svc.write_send_list(out, result.rows)
+        runs.write_send_list(out, result.rows)
 
     def text() -> str:
         head = (f"selection run {doc['run_id']}" if doc["run_id"] else "preview (not stored)")
@@ -136,7 +137,7 @@ def select_command(
 def selection_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
     """List stored selection runs."""
     with transaction(db) as session:
-        rows = svc.list_runs(session, login(session, as_user))
+        rows = runs.list_runs(session, login(session, as_user))
     emit(fmt, rows, lambda: table(rows, ["id", "created_at", "by", "method", "properties", "grade",
                                          "picks", "total_cost", "state"]))
 
@@ -147,7 +148,7 @@ def selection_show(run: str, db: DbOpt = None, as_user: AsOpt = None,
                    fmt: FormatOpt = "table") -> None:
     """Show a stored run: parameters, send list, and the results that came back."""
     with transaction(db) as session:
-        doc = svc.run_detail(session, login(session, as_user), run)
+        doc = runs.run_detail(session, login(session, as_user), run)
 
     def text() -> str:
         rows = [{**p, "results": ", ".join(f"{r['method']}={r['value']:g} ({r['status']})"
@@ -168,7 +169,7 @@ def selection_close(run: str, reason: Annotated[str, typer.Option("--reason")],
                     db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
     """Close an open run whose remaining samples will not be tested."""
     with transaction(db) as session:
-        closed = svc.close_run(session, login(session, as_user), run, reason)
+        closed = runs.close_run(session, login(session, as_user), run, reason)
     emit(fmt, closed, f"selection run {closed.id} closed")
 
 

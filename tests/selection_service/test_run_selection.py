@@ -22,6 +22,7 @@ from registry.lineage.canonical import content_hash
 from registry.selection import SelectionSpace, kennard_stone
 from registry.services import admin, references
 from registry.services import selection as svc
+from registry.services import selection_runs as runs
 from registry.services.models import DEFAULT_RECIPE
 from registry.spectra.preprocessing import Recipe
 from registry.storage.engine import session_scope
@@ -140,7 +141,7 @@ def test_rerun_on_the_same_state_gives_the_same_picks(sel_registry):
     stored = run(engine, actors["lab_manager"], method="d-optimal", n=8)
     assert ids_of(stored) == ids_of(a) and stored.pool_sha256 == a.pool_sha256
     with session_scope(engine) as s:
-        replay = svc.replay_selection(s, actors["lab_manager"], stored.run.id)
+        replay = runs.replay_selection(s, actors["lab_manager"], stored.run.id)
     assert replay["same_pool"] and replay["same_picks"]
 
 
@@ -208,7 +209,7 @@ def test_results_link_back_and_answer_the_run(sel_registry, tmp_path):
             tmp_path / "mon.csv", picked, "MON", "ASTM D2700", [85.0, 86.1, 84.2]))
     with session_scope(engine) as s:
         assert s.get(SelectionRun, res.run.id).state == "answered"
-        detail = svc.run_detail(s, actors["auditor"], res.run.id)
+        detail = runs.run_detail(s, actors["auditor"], res.run.id)
     assert [p["sample_id"] for p in detail["picks"]] == picked
     assert all(len(p["results"]) == 2 for p in detail["picks"])
     # Tested samples are no longer candidates.
@@ -304,7 +305,7 @@ def test_send_list_csv_has_the_promised_columns(sel_registry, tmp_path):
     engine, actors, _, _ = sel_registry
     res = run(engine, actors["lab_manager"], property_codes=["RON", "MON"], n=3, store=False)
     path = tmp_path / "send.csv"
-    svc.write_send_list(path, res.rows)
+    runs.write_send_list(path, res.rows)
     import csv
 
     with path.open() as fh:
@@ -321,14 +322,14 @@ def test_closing_a_run_returns_its_samples_to_the_pool(sel_registry):
     first = run(engine, actors["lab_manager"], property_codes=["RON"], n=4)
     with pytest.raises(PermissionDenied):
         with session_scope(engine) as s:
-            svc.close_run(s, actors["analyst"], first.run.id, "budget cut")
+            runs.close_run(s, actors["analyst"], first.run.id, "budget cut")
     with pytest.raises(InputError, match="reason"):
         with session_scope(engine) as s:
-            svc.close_run(s, actors["lab_manager"], first.run.id, " ")
+            runs.close_run(s, actors["lab_manager"], first.run.id, " ")
     with session_scope(engine) as s:
-        assert svc.close_run(s, actors["lab_manager"], first.run.id, "budget cut").state == "closed"
+        assert runs.close_run(s, actors["lab_manager"], first.run.id, "budget cut").state == "closed"
     again = run(engine, actors["lab_manager"], property_codes=["RON"], n=4, store=False)
     assert set(first.picked_sample_ids) <= set(again.pool_sample_ids)
     with pytest.raises(InputError, match="only an open run"):
         with session_scope(engine) as s:
-            svc.close_run(s, actors["lab_manager"], first.run.id, "twice")
+            runs.close_run(s, actors["lab_manager"], first.run.id, "twice")

@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from registry.services import models, qc, selection, views
+from registry.services import models, qc, selection, selection_runs, views
 from registry.storage.engine import make_engine, session_scope
 from tests.factories import write_population_csv
 from seed_demo.synthetic import generate_population
@@ -128,7 +128,7 @@ def test_send_list_picks_what_the_budget_buys_and_offers_the_csv(ui_reg):
     assert "calibration space" in texts(at)
     csv_text = at.download_button(key="sel_download").proto  # present once a run is shown
     assert csv_text is not None
-    runs = service(ui_reg, selection.list_runs)
+    runs = service(ui_reg, selection_runs.list_runs)
     assert len(runs) == 1
 
 

@@ -7,7 +7,7 @@ import streamlit as st
 
 from registry.lifecycle.permissions import Action
 from registry.services import models as model_svc
-from registry.services import revalidation
+from registry.services import revalidation, selection_runs
 from registry.services import views
 from ui.common import FAILED, call, may, not_available, optional_service, require_actor
 
@@ -76,7 +76,7 @@ if go:
             "run_id": result.run.id if result.run is not None else None,
             "rows": result.rows, "benefit": result.benefit, "model": result.model_label,
             "pool_size": result.pool_size, "tests": result.tests, "currency": result.currency,
-            "total_cost": result.total_cost, "csv": selection.send_list_csv(result.rows)}
+            "total_cost": result.total_cost, "csv": selection_runs.send_list_csv(result.rows)}
 
 
 def benefit_lines(b: dict) -> list[str]:
