@@ -7,11 +7,12 @@ references in the chemometrics and selection tests.
 
 from __future__ import annotations
 
+import sqlite3
 from pathlib import Path
 
 import numpy as np
 
-from registry.services import intake, references
+from registry.services import calibration, intake, models, references
 from registry.spectra.formats import write_csv_spectra
 from registry.spectra.record import SpectrumRecord
 from registry.storage.engine import session_scope
@@ -59,3 +60,24 @@ def referenced_registry(engine, actors, tmp_path: Path, *, n: int = 90, n_unrefe
         references.import_references(s, actors["analyst"], ref_path)
     return {"ids": ids, "ron": ron, "population": pop, "referenced": ids[:n],
             "unreferenced": ids[n:]}
+
+
+def trained_ron_version(engine, actors, *, author: str = "analyst", set_name: str = "RON-A",
+                        new_set: bool = True) -> str:
+    """Freeze a RON calibration set of every referenced PREM95 sample (a quarter held out by
+    Duplex) as the lab manager, unless it exists, and train a version on it; its label."""
+    if new_set:
+        with session_scope(engine) as s:
+            calibration.create_calibration_set(s, actors["lab_manager"], set_name,
+                                               property_code="RON", grade_code="PREM95",
+                                               all_referenced=True, validation="duplex:0.25")
+    with session_scope(engine) as s:
+        return models.train_model_version(s, actors[author], set_name, max_components=5).label
+
+
+def copy_sqlite(src: Path, dst: Path) -> None:
+    """Copy an SQLite registry consistently (the backup API includes WAL content)."""
+    with sqlite3.connect(src) as a, sqlite3.connect(dst) as b:
+        a.backup(b)
+    a.close()
+    b.close()

@@ -10,7 +10,6 @@ version even when their roles would allow it).
 
 from __future__ import annotations
 
-import sqlite3
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -18,13 +17,13 @@ import pytest
 from sqlalchemy import func
 from sqlmodel import select
 
-from registry.services import admin, calibration, models
+from registry.services import admin, models
 from registry.services.auth import actor_of
 from registry.services.context import Actor
 from registry.storage.engine import make_engine, session_scope, upgrade
 from registry.storage.models import ENTITY_TABLES
 from tests.conftest import PASSWORD, populate_basics
-from tests.factories import referenced_registry
+from tests.factories import copy_sqlite, referenced_registry, trained_ron_version
 
 SECOND_SITE_ZONE = "America/Chicago"
 
@@ -58,14 +57,8 @@ def build_registry(url: str, base: Path) -> dict:
         admin.add_site(s, root, "River Lab", timezone=SECOND_SITE_ZONE)
         admin.add_instrument(s, root, "IR-200", site="River Lab")
     info = referenced_registry(engine, actors, base, n=80)
-    with session_scope(engine) as s:
-        calibration.create_calibration_set(s, actors["lab_manager"], "RON-A", property_code="RON",
-                                           grade_code="PREM95", all_referenced=True,
-                                           validation="duplex:0.25")
-    with session_scope(engine) as s:
-        v1 = models.train_model_version(s, actors["analyst"], "RON-A", max_components=5).label
-    with session_scope(engine) as s:
-        v2 = models.train_model_version(s, actors["dual"], "RON-A", max_components=5).label
+    v1 = trained_ron_version(engine, actors)
+    v2 = trained_ron_version(engine, actors, author="dual", new_set=False)
     for label, who in ((v1, "reviewer"), (v2, "dual")):
         with session_scope(engine) as s:
             rec = models.validate_model(s, actors[who], label)
@@ -81,18 +74,10 @@ def built(tmp_path_factory):
     return {**build_registry(f"sqlite:///{db}", base), "path": db}
 
 
-def copy_db(src: Path, dst: Path) -> None:
-    """Copy an SQLite registry consistently (the backup API includes WAL content)."""
-    with sqlite3.connect(src) as a, sqlite3.connect(dst) as b:
-        a.backup(b)
-    a.close()
-    b.close()
-
-
 @pytest.fixture
 def reg(built, tmp_path):
     path = tmp_path / "registry.db"
-    copy_db(built["path"], path)
+    copy_sqlite(built["path"], path)
     url = f"sqlite:///{path}"
     engine = make_engine(url)
     yield Reg(url=url, path=path, engine=engine, actors=dict(built["actors"]), v1=built["v1"],

@@ -21,7 +21,8 @@ from registry.storage.engine import make_engine, session_scope
 from registry.storage.models import Deployment, ModelVersion
 from tests.conftest import PASSWORD
 from tests.lifecycle.brief import brief_moves
-from tests.lifecycle_services.conftest import Reg, copy_db
+from tests.factories import copy_sqlite
+from tests.lifecycle_services.conftest import Reg
 
 MOVES = brief_moves()
 
@@ -45,7 +46,7 @@ def test_service_lifecycle_follows_the_brief(built, tmp_path):
         def __init__(self):
             super().__init__()
             path = tmp_path / f"m{next(counter)}.db"
-            copy_db(built["path"], path)
+            copy_sqlite(built["path"], path)
             engine = make_engine(f"sqlite:///{path}")
             self.reg = Reg(url=f"sqlite:///{path}", path=path, engine=engine,
                            actors=built["actors"], v1=built["v1"], v2=built["v2"], tmp=tmp_path)

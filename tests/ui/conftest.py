@@ -10,17 +10,16 @@ Each test gets its own copy of the file.
 
 from __future__ import annotations
 
-import sqlite3
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-from registry.services import calibration, lifecycle, models, predictions, qc
+from registry.services import lifecycle, models, predictions, qc
 from registry.storage.engine import dispose_engines, make_engine, session_scope, upgrade
 from tests.conftest import PASSWORD, ROLE_USERS, populate_basics
-from tests.factories import referenced_registry
+from tests.factories import copy_sqlite, referenced_registry, trained_ron_version
 
 N_REFERENCED = 80
 N_UNREFERENCED = 40
@@ -44,12 +43,7 @@ def _build(base: Path) -> dict:
     engine = make_engine(url)
     actors = populate_basics(engine)
     info = referenced_registry(engine, actors, base, n=N_REFERENCED, n_unreferenced=N_UNREFERENCED)
-    with session_scope(engine) as s:
-        calibration.create_calibration_set(s, actors["lab_manager"], "RON-A", property_code="RON",
-                                           grade_code="PREM95", all_referenced=True,
-                                           validation="duplex:0.25")
-    with session_scope(engine) as s:
-        label = models.train_model_version(s, actors["analyst"], "RON-A", max_components=5).label
+    label = trained_ron_version(engine, actors)
     with session_scope(engine) as s:
         assert models.validate_model(s, actors["reviewer"], label).passed
     with session_scope(engine) as s:
@@ -84,10 +78,7 @@ def ui_built(tmp_path_factory):
 def ui_reg(ui_built, tmp_path, monkeypatch):
     """A private copy of the built registry; SPECLEDGER_DATABASE_URL points at it."""
     path = tmp_path / "registry.db"
-    with sqlite3.connect(ui_built["path"]) as a, sqlite3.connect(path) as b:
-        a.backup(b)  # the backup API includes WAL content
-    a.close()
-    b.close()
+    copy_sqlite(ui_built["path"], path)
     url = f"sqlite:///{path}"
     monkeypatch.setenv("SPECLEDGER_DATABASE_URL", url)
     yield UIRegistry(url=url, path=path, actors=dict(ui_built["actors"]), label=ui_built["label"],

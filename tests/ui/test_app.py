@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from registry.services import models, qc, selection, selection_runs, views
+from registry.services import models, qc, selection_runs, views
 from registry.storage.engine import make_engine, session_scope
 from tests.factories import write_population_csv
 from seed_demo.synthetic import generate_population
