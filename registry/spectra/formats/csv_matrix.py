@@ -303,8 +303,8 @@ def iter_csv_spectra(path, *, chunk_rows: int = 1000, delimiter: str | None = No
     parse_rows : int, optional
         Rows per pandas parse call. By default as many as fit in about 64 MB of cells
         (pandas has a large fixed cost per call with thousands of columns); a window
-        starts with a few hundred rows and doubles, so a reader in another process gets
-        its first spectra early.
+        starts with 1,000 rows and doubles, so a reader in another process gets its
+        first spectra early.
 
     Yields
     ------
