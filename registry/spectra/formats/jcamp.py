@@ -67,6 +67,12 @@ _SQZ_DIGIT = {"@": 0, **{c: i + 1 for i, c in enumerate("ABCDEFGHI")},
 _DIF_DIGIT = {"%": 0, **{c: i + 1 for i, c in enumerate("JKLMNOPQR")},
               **{c: -(i + 1) for i, c in enumerate("jklmnopqr")}}
 _DUP_DIGIT = {c: i + 1 for i, c in enumerate("STUVWXYZs")}
+# The same digits as the text that replaces the leading character before float()/int().
+_SQZ_TEXT = {c: ("-" if d < 0 else "") + str(abs(d)) for c, d in _SQZ_DIGIT.items()}
+_DIF_TEXT = {c: ("-" if d < 0 else "") + str(abs(d)) for c, d in _DIF_DIGIT.items()}
+_DUP_TEXT = {c: str(d) for c, d in _DUP_DIGIT.items()}
+# A line can hold a NaN/Inf word only if it contains one of these letter runs.
+_MAYBE_NON_FINITE = re.compile(r"[nN][aA][nN]|[iI][nN][fF]")
 _SQZ_POS, _SQZ_NEG = "@ABCDEFGHI", " abcdefghi"
 _DIF_POS, _DIF_NEG = "%JKLMNOPQR", " jklmnopqr"
 _DUP_CHARS = " STUVWXYZs"
@@ -309,17 +315,15 @@ class _Reader:
 
     def decode_asdf_line(self, text: str, number: int, room: int):
         """Abscissa, ordinates and whether the line ends in DIF form."""
-        for word in _WORD_SPLIT.split(text):
-            if word.lower().lstrip("+-") in _NON_FINITE_WORDS:
-                raise self.error(f"non-finite value {word!r}", line=number)
+        if _MAYBE_NON_FINITE.search(text):  # the word check only where it can match
+            for word in _WORD_SPLIT.split(text):
+                if word.lower().lstrip("+-") in _NON_FINITE_WORDS:
+                    raise self.error(f"non-finite value {word!r}", line=number)
         tokens = []
         pos = 0
-        while pos < len(text):
-            match = _ASDF_TOKEN.match(text, pos)
-            if match is None:
-                char = text[pos]
-                what = "missing value '?'" if char == "?" else f"unexpected character {char!r}"
-                raise self.error(f"{what} at column {pos + 1}", line=number)
+        for match in _ASDF_TOKEN.finditer(text):
+            if match.start() != pos:  # a character no token form accepts
+                break
             pos = match.end()
             kind = match.lastgroup
             if kind == "sep":
@@ -330,13 +334,16 @@ class _Reader:
             elif kind == "dup":
                 if len(token) > 10:
                     raise self.error(f"DUP count {token!r} is too large", line=number)
-                value = int(str(_DUP_DIGIT[token[0]]) + token[1:])
+                value = int(_DUP_TEXT[token[0]] + token[1:])
             else:
-                digit = (_SQZ_DIGIT if kind == "sqz" else _DIF_DIGIT)[token[0]]
-                value = float(("-" if digit < 0 else "") + str(abs(digit)) + token[1:])
+                value = float((_SQZ_TEXT if kind == "sqz" else _DIF_TEXT)[token[0]] + token[1:])
             if not math.isfinite(value):
                 raise self.error(f"value {token!r} is not finite", line=number)
             tokens.append((_ABS if kind in ("affn", "sqz") else kind, value))
+        if pos != len(text):
+            char = text[pos]
+            what = "missing value '?'" if char == "?" else f"unexpected character {char!r}"
+            raise self.error(f"{what} at column {pos + 1}", line=number)
         if not tokens:
             raise self.error("empty data line", line=number)
         if tokens[0][0] != _ABS:
