@@ -126,6 +126,33 @@ def _batches(path: Path, fmt: str, chunk_rows: int, sample_id_field: str) -> Ite
     yield from read_batches(path, fmt, chunk_rows=chunk_rows, sample_id_field=sample_id_field)
 
 
+def _per_file(files: list[Path], fmt: str, chunk_rows: int,
+              sample_id_field: str) -> Iterator[tuple[Path, Iterator[Batch]]]:
+    """(file, its batches) in folder order; iterating the batches raises the file's
+    InputError. Many small files are parsed two at a time (see parse_ahead.in_order)."""
+    if not parse_ahead.share_files(files):
+        for path in files:
+            yield path, _batches(path, fmt, chunk_rows, sample_id_field)
+        return
+    whole = functools.partial(_whole_file, fmt=fmt, chunk_rows=chunk_rows,
+                              sample_id_field=sample_id_field)
+    for path, batches, error in parse_ahead.in_order(files, whole):
+        yield path, _replay(batches, error)
+
+
+def _whole_file(path: Path, *, fmt: str, chunk_rows: int, sample_id_field: str) -> list[Batch]:
+    out = list(read_batches(path, fmt, chunk_rows=chunk_rows, sample_id_field=sample_id_field))
+    for batch in out:  # hashed where parsed, to spread the work over both processes
+        batch.digests = content_sha256_rows(batch.axis, batch.Y)
+    return out
+
+
+def _replay(batches: list[Batch] | None, error: InputError | None) -> Iterator[Batch]:
+    if error is not None:
+        raise error
+    yield from batches
+
+
 def _window_batches(path: Path, window: tuple, chunk_rows: int,
                     parse_rows: int | None = None) -> Iterator[Batch]:
     label = str(path)
@@ -228,11 +255,11 @@ def import_spectra(session: Session, actor: Actor, paths: list[str | Path], *,
     seen: set[str] = set()
     vouched: list[tuple[int, str]] = []
     now = utcnow()
-    for path in files:
+    for path, batches in _per_file(files, fmt, chunk_rows, sample_id_field):
         per = {"imported": 0, "skipped": 0}
         summary.per_file[str(path)] = per
         try:
-            for batch in _batches(path, fmt, chunk_rows, sample_id_field):
+            for batch in batches:
                 rows = _prepare(ctx, batch, errors, seen, on_duplicate, per, now, actor)
                 if rows and not errors:
                     ids = insert_spectra(session, rows)

@@ -1,4 +1,4 @@
-"""Parse large spectrum files in child processes while this process stores what is parsed.
+"""Parse spectrum files in a child process while this process stores what is parsed.
 
 Parsing (pandas' tokenizer, the numeric checks, hashing) and storing (inserts) each
 take a large share of a big import, and threads do not overlap them (the parser holds
@@ -9,12 +9,18 @@ none is, parses a chunk of its own window instead of waiting (a child needs a fe
 tenths of a second before its first batch). Memory stays a few chunks per process; the
 children only read the file and never touch the database.
 
+A folder of many small files (JCAMP-DX, one spectrum each) is shared the same way:
+the child parses every second file and runs a few files ahead, this process parses the
+others and stores every file's spectra in folder order (:func:`in_order`), so ids,
+errors and the audit entry come out as they would from one process.
+
 Errors are sent as plain fields and raised again here with the same file, line and
 field, so a bad file reads as it would without the children.
 """
 
 from __future__ import annotations
 
+import functools
 import multiprocessing as mp
 import os
 import queue
@@ -26,6 +32,9 @@ from ..errors import FormatError, InputError, RegistryError
 
 #: Files smaller than this are parsed inline (forking would cost more than it saves).
 PARALLEL_MIN_BYTES = 32 * 2**20
+#: A list of files is shared with a child when it has at least this many files and bytes,
+#: and no file over FILE_MAX_BYTES (each file's spectra are held whole while in transit).
+FILES_MIN_COUNT, FILES_MIN_BYTES, FILE_MAX_BYTES = 4, 2**20, 8 * 2**20
 _DONE, _ERROR, _ITEM = "done", "error", "item"
 
 
@@ -66,15 +75,29 @@ def _rebuild(kind: str, message: str, file, line, field) -> Exception:
     return InputError(message, file=file, line=line, field=field)
 
 
+def _can_fork() -> bool:
+    """A second core, and called from the main thread: forking a process whose other
+    threads may hold locks (a web server's, say) is not worth the risk."""
+    return ("fork" in mp.get_all_start_methods() and (os.cpu_count() or 1) > 1
+            and threading.current_thread() is threading.main_thread())
+
+
 def use_children(path) -> bool:
-    """Large file, a second core, and called from the main thread: forking a process whose
-    other threads may hold locks (a web server's, say) is not worth the risk."""
+    """Parse this one file in windows with a child (see :data:`PARALLEL_MIN_BYTES`)."""
     try:
-        return (os.path.getsize(path) >= PARALLEL_MIN_BYTES
-                and "fork" in mp.get_all_start_methods() and (os.cpu_count() or 1) > 1
-                and threading.current_thread() is threading.main_thread())
+        return os.path.getsize(path) >= PARALLEL_MIN_BYTES and _can_fork()
     except OSError:
         return False
+
+
+def share_files(paths) -> bool:
+    """Parse these files with a child, every second one (see :data:`FILES_MIN_BYTES`)."""
+    try:
+        sizes = [os.path.getsize(p) for p in paths]
+    except OSError:
+        return False
+    return (len(sizes) >= FILES_MIN_COUNT and sum(sizes) >= FILES_MIN_BYTES
+            and max(sizes) <= FILE_MAX_BYTES and _can_fork())
 
 
 def interleaved(producers: list[Callable[[], Iterator]], *,
@@ -118,6 +141,51 @@ def interleaved(producers: list[Callable[[], Iterator]], *,
                 child.terminate()
             child.join(timeout=5)
             receiver.close()
+
+
+def _outcomes(items: list, work: Callable) -> Iterator:
+    """(result, None) or (None, error fields) for each item: a bad item is an answer, not
+    the end of the others."""
+    for item in items:
+        try:
+            yield work(item), None
+        except InputError as exc:
+            yield None, (type(exc).__name__, exc.message, exc.file, exc.line, exc.field)
+
+
+def in_order(items: list, work: Callable, *, depth: int = 4) -> Iterator[tuple]:
+    """``(item, work(item), None)``, or ``(item, None, error)`` when ``work`` raised an
+    InputError, for every item in order. The items at odd positions are worked on by a
+    forked child that runs up to ``depth`` items ahead; this process works on the others
+    when their turn comes. Any other exception ends the whole run."""
+    ctx = mp.get_context("fork")
+    receiver, sender = ctx.Pipe(duplex=False)
+    produce = functools.partial(_outcomes, list(items)[1::2], work)
+    child = ctx.Process(target=_child, args=(produce, sender, depth), daemon=True,
+                        name="specledger-parse-files")
+    child.start()
+    sender.close()
+    try:
+        for k, item in enumerate(items):
+            if k % 2 == 0:
+                try:
+                    result, error = work(item), None
+                except InputError as exc:
+                    result, error = None, exc
+                yield item, result, error
+                continue
+            kind, payload = _receive(receiver, child)
+            if kind == _ERROR:
+                raise _rebuild(*payload)
+            if kind != _ITEM:
+                raise RegistryError("a parser process ended before its last file")
+            result, error = payload
+            yield item, result, _rebuild(*error) if error else None
+    finally:
+        if child.is_alive():
+            child.terminate()
+        child.join(timeout=5)
+        receiver.close()
 
 
 def _receive(receiver, child):

@@ -308,3 +308,61 @@ def test_large_files_parsed_in_child_processes_store_the_same_and_report_the_sam
     e = err.value.errors[0]
     assert (e.line, e.field) == (56, lines[0].split(",")[10]) and "oops" in e.message
     assert snapshot(engine) == before
+
+
+
+def _folder_import(url, actors, folder, monkeypatch, shared: bool):
+    """Import ``folder`` into the registry at ``url``, with the file list shared with a
+    child process or not; returns (summary counts, errors, stored spectrum rows)."""
+    from registry.services import parse_ahead
+    from registry.storage.engine import make_engine
+
+    monkeypatch.setattr(parse_ahead, "FILES_MIN_BYTES", 0)
+    monkeypatch.setattr(parse_ahead, "FILES_MIN_COUNT", 4 if shared else 10**9)
+    assert parse_ahead.share_files(intake.expand_paths([folder])) == shared
+    engine = make_engine(url)
+    counts = errors = None
+    try:
+        with session_scope(engine) as s:
+            summary = intake.import_spectra(s, actors["analyst"], [folder], instrument="IR-100")
+            counts = (summary.imported, summary.skipped, summary.samples_created,
+                      summary.spectrum_ids, summary.per_file)
+    except ImportRejected as exc:
+        errors = [(e.file, e.line, e.field, e.message) for e in exc.errors]
+    with engine.connect() as conn:
+        rows = [tuple(r) for r in conn.execute(text(
+            "SELECT id, sha256, source_file, sample_id FROM spectrum ORDER BY id"))]
+    engine.dispose()
+    return counts, errors, rows
+
+
+@pytest.mark.parametrize("bad_at", [None, 4, 7])  # none; one parsed here; one by the child
+def test_a_folder_shared_with_a_child_imports_exactly_as_one_process_does(
+        registry, tmp_path, monkeypatch, bad_at):
+    """Same ids in folder order, same hashes, same summary, same error and line."""
+    import sqlite3
+
+    engine, actors = registry
+    folder = tmp_path / "many"
+    folder.mkdir()
+    for k in range(12):
+        path = jdx(folder, f"s{k:02d}.jdx", f"M{k:02d}", 100 + k)
+        if k == bad_at:  # a character no ASDF form has, on the third data line
+            lines = path.read_text().splitlines()
+            i = next(j for j, line in enumerate(lines) if line.startswith("##XYDATA")) + 3
+            lines[i] = lines[i][:-1] + "?"
+            path.write_text("\n".join(lines) + "\n")
+    twin = tmp_path / "twin.db"  # the same starting registry for the shared run
+    with sqlite3.connect(engine.url.database) as a, sqlite3.connect(twin) as b:
+        a.backup(b)
+    a.close()
+    b.close()
+    alone = _folder_import(str(engine.url), actors, folder, monkeypatch, shared=False)
+    shared = _folder_import(f"sqlite:///{twin}", actors, folder, monkeypatch, shared=True)
+    assert shared == alone
+    counts, errors, rows = alone
+    if bad_at is None:
+        assert counts[0] == 12 and [r[2] for r in rows] == [f"s{k:02d}.jdx" for k in range(12)]
+    else:
+        assert counts is None and rows == []
+        assert errors[0][0].endswith(f"s{bad_at:02d}.jdx") and "'?'" in errors[0][3]

@@ -53,3 +53,30 @@ def test_an_error_in_this_process_stops_the_children():
 def test_a_child_that_dies_is_an_error_not_a_short_import():
     with pytest.raises(RegistryError, match="stopped unexpectedly"):
         list(parse_ahead.interleaved([_producer(0, 100, crash_at=60)]))
+
+
+def _square_or_refuse(k: int) -> int:
+    if k % 7 == 3:
+        raise FormatError(f"item {k} refused", file=f"f{k}.jdx", line=k, field="XYDATA")
+    if k == 99:
+        raise ZeroDivisionError("a bug, not bad input")
+    return k * k
+
+
+def test_in_order_answers_every_item_in_order_with_its_own_error():
+    got = list(parse_ahead.in_order(list(range(30)), _square_or_refuse))
+    assert [item for item, _, _ in got] == list(range(30))
+    for k, result, error in got:
+        if k % 7 == 3:  # on both sides of the split: 3, 17 here; 10, 24 in the child
+            assert result is None and isinstance(error, FormatError)
+            assert (error.file, error.line, error.field) == (f"f{k}.jdx", k, "XYDATA")
+        else:
+            assert error is None and result == k * k
+
+
+def test_in_order_stops_on_anything_but_bad_input():
+    with pytest.raises(RegistryError, match="ZeroDivisionError"):  # 99 at position 9: child
+        list(parse_ahead.in_order(list(range(90, 110)), _square_or_refuse))
+    with pytest.raises(ZeroDivisionError):  # 99 at position 0: this process
+        list(parse_ahead.in_order(list(range(99, 110)), _square_or_refuse))
+    assert not [p for p in mp.active_children() if p.name.startswith("specledger-parse")]
