@@ -76,11 +76,11 @@ def reference_read(db: Path) -> float:
     return elapsed
 
 
-def registry_run(csv_path: Path, db: Path) -> tuple[float, float, float]:
-    from registry.services import admin, intake
+def bench_registry(db: Path):
+    """A fresh registry file with one analyst, one instrument and grade G1: (engine, analyst)."""
+    from registry.services import admin
     from registry.services.auth import actor_of
     from registry.storage.engine import make_engine, session_scope, upgrade
-    from registry.storage.spectra_store import load_matrix
 
     url = f"sqlite:///{db}"
     upgrade(url)
@@ -91,6 +91,15 @@ def registry_run(csv_path: Path, db: Path) -> tuple[float, float, float]:
         admin.add_site(s, root, "Bench")
         admin.add_instrument(s, root, "B-1", site="Bench")
         admin.add_grade(s, root, "G1")
+    return engine, analyst
+
+
+def registry_run(csv_path: Path, db: Path) -> tuple[float, float, float]:
+    from registry.services import intake
+    from registry.storage.engine import session_scope
+    from registry.storage.spectra_store import load_matrix
+
+    engine, analyst = bench_registry(db)
     t0 = time.perf_counter()
     with session_scope(engine) as s:
         summary = intake.import_spectra(s, analyst, [csv_path], instrument="B-1")
@@ -118,11 +127,10 @@ def registry_run(csv_path: Path, db: Path) -> tuple[float, float, float]:
 def folder_run(tmp: Path, n_files: int = 1000) -> tuple[float, float]:
     """A folder of single-spectrum JCAMP-DX files (DIFDUP), imported with the file list shared
     with a child process and in one process; seconds for each, each into a fresh registry."""
-    from registry.services import admin, intake, parse_ahead
-    from registry.services.auth import actor_of
+    from registry.services import intake, parse_ahead
     from registry.spectra.formats import write_jcamp
     from registry.spectra.record import SpectrumRecord
-    from registry.storage.engine import make_engine, session_scope, upgrade
+    from registry.storage.engine import session_scope
 
     folder = tmp / "jdx"
     folder.mkdir()
@@ -134,14 +142,7 @@ def folder_run(tmp: Path, n_files: int = 1000) -> tuple[float, float]:
         (folder / f"J{k:05d}.jdx").write_text(write_jcamp(rec, form="DIFDUP"))
     times = []
     for shared in (True, False):
-        url = f"sqlite:///{tmp / f'folder_{shared}.db'}"
-        upgrade(url)
-        engine = make_engine(url)
-        with session_scope(engine) as s:
-            root = actor_of(admin.add_user(s, None, "root", ["admin"], PW))
-            analyst = actor_of(admin.add_user(s, root, "ana", ["analyst"], PW))
-            admin.add_site(s, root, "Bench")
-            admin.add_instrument(s, root, "B-1", site="Bench")
+        engine, analyst = bench_registry(tmp / f"folder_{shared}.db")
         keep = parse_ahead.FILES_MIN_COUNT
         parse_ahead.FILES_MIN_COUNT = keep if shared else 10**9
         try:
