@@ -3,11 +3,11 @@
 Parsing (pandas' tokenizer, the numeric checks, hashing) and storing (inserts) each
 take a large share of a big import, and threads do not overlap them (the parser holds
 the GIL much of the time). A large wide-form CSV file is therefore cut into whole-line
-windows: forked children parse theirs and hand over batches of at most ``chunk_rows``
-spectra through pipes, while this process stores every batch that is ready and, when
-none is, parses a chunk of its own window instead of waiting (a child needs a few
-tenths of a second before its first batch). Memory stays a few chunks per process; the
-children only read the file and never touch the database.
+windows: a forked child parses its window and hands over batches of at most
+``chunk_rows`` spectra through a pipe, while this process stores every batch that is
+ready and, when none is, parses a chunk of its own window instead of waiting (a child
+needs a few tenths of a second before its first batch). Memory stays a few chunks per process; a
+child only reads the file and never touches the database.
 
 A folder of many small files (JCAMP-DX, one spectrum each) is shared the same way:
 the child parses every second file and runs a few files ahead, this process parses the
@@ -60,11 +60,33 @@ def _child(produce: Callable[[], Iterator], conn, depth: int) -> None:
             out.put((_ITEM, item))
         out.put((_DONE, None))
     except InputError as exc:
-        out.put((_ERROR, (type(exc).__name__, exc.message, exc.file, exc.line, exc.field)))
+        out.put((_ERROR, _fields(exc)))
     except Exception as exc:  # anything else: reported, never a silent partial import
         out.put((_ERROR, ("RegistryError", f"{type(exc).__name__}: {exc}", None, None, None)))
     feeder.join()
     conn.close()
+
+
+def _fields(exc: InputError) -> tuple:
+    """An input error as plain, picklable fields (see :func:`_rebuild`)."""
+    return type(exc).__name__, exc.message, exc.file, exc.line, exc.field
+
+
+def _start(produce: Callable[[], Iterator], depth: int, name: str):
+    """Fork a child running ``produce``; (process, receiving end of its pipe)."""
+    ctx = mp.get_context("fork")
+    receiver, sender = ctx.Pipe(duplex=False)
+    child = ctx.Process(target=_child, args=(produce, sender, depth), daemon=True, name=name)
+    child.start()
+    sender.close()  # the child's end; closing ours lets a dead child show as EOF
+    return child, receiver
+
+
+def _stop(child, receiver) -> None:
+    if child.is_alive():
+        child.terminate()
+    child.join(timeout=5)
+    receiver.close()
 
 
 def _rebuild(kind: str, message: str, file, line, field) -> Exception:
@@ -105,16 +127,10 @@ def interleaved(producers: list[Callable[[], Iterator]], *,
     """Items of every producer, each run in a forked child, as they become ready; items of
     ``local`` (run here) whenever no child has one ready. Order between producers is
     not kept; within a producer it is."""
-    ctx = mp.get_context("fork")
     children = []  # (process, receiving end)
     try:
         for k, produce in enumerate(producers):
-            receiver, sender = ctx.Pipe(duplex=False)
-            child = ctx.Process(target=_child, args=(produce, sender, depth), daemon=True,
-                                name=f"specledger-parse-{k}")
-            child.start()
-            sender.close()  # the child's end; closing ours lets a dead child show as EOF
-            children.append((child, receiver))
+            children.append(_start(produce, depth, f"specledger-parse-{k}"))
         mine = iter(local()) if local is not None else None
         live = dict((receiver, child) for child, receiver in children)
         while live or mine is not None:
@@ -137,10 +153,7 @@ def interleaved(producers: list[Callable[[], Iterator]], *,
                     raise _rebuild(*payload)
     finally:
         for child, receiver in children:
-            if child.is_alive():
-                child.terminate()
-            child.join(timeout=5)
-            receiver.close()
+            _stop(child, receiver)
 
 
 def _outcomes(items: list, work: Callable) -> Iterator:
@@ -150,7 +163,7 @@ def _outcomes(items: list, work: Callable) -> Iterator:
         try:
             yield work(item), None
         except InputError as exc:
-            yield None, (type(exc).__name__, exc.message, exc.file, exc.line, exc.field)
+            yield None, _fields(exc)
 
 
 def in_order(items: list, work: Callable, *, depth: int = 4) -> Iterator[tuple]:
@@ -158,13 +171,8 @@ def in_order(items: list, work: Callable, *, depth: int = 4) -> Iterator[tuple]:
     InputError, for every item in order. The items at odd positions are worked on by a
     forked child that runs up to ``depth`` items ahead; this process works on the others
     when their turn comes. Any other exception ends the whole run."""
-    ctx = mp.get_context("fork")
-    receiver, sender = ctx.Pipe(duplex=False)
     produce = functools.partial(_outcomes, list(items)[1::2], work)
-    child = ctx.Process(target=_child, args=(produce, sender, depth), daemon=True,
-                        name="specledger-parse-files")
-    child.start()
-    sender.close()
+    child, receiver = _start(produce, depth, "specledger-parse-files")
     try:
         for k, item in enumerate(items):
             if k % 2 == 0:
@@ -182,10 +190,7 @@ def in_order(items: list, work: Callable, *, depth: int = 4) -> Iterator[tuple]:
             result, error = payload
             yield item, result, _rebuild(*error) if error else None
     finally:
-        if child.is_alive():
-            child.terminate()
-        child.join(timeout=5)
-        receiver.close()
+        _stop(child, receiver)
 
 
 def _receive(receiver, child):
