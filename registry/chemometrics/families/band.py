@@ -51,14 +51,14 @@ FLAGS = ("band_range", "baseline_anchor", "saturation")
 DEFAULT_SATURATION_LIMIT = 1.5
 
 
-def _pair(value, name: str) -> tuple[float, float]:
+def _pair(value, name: str, what: str = "wavenumbers (cm⁻¹)") -> tuple[float, float]:
+    """Two different finite numbers, returned in ascending order."""
     try:
         a, b = (float(v) for v in value)
     except (TypeError, ValueError):
-        raise InputError(f"{name} must be two wavenumbers (cm⁻¹), got {value!r}",
-                         field=name) from None
+        raise InputError(f"{name} must be two {what}, got {value!r}", field=name) from None
     if not (np.isfinite(a) and np.isfinite(b)) or a == b:
-        raise InputError(f"{name} must be two different finite wavenumbers, got {value!r}",
+        raise InputError(f"{name} must be two different finite {what}, got {value!r}",
                          field=name)
     return (a, b) if a < b else (b, a)
 
@@ -194,7 +194,8 @@ class BandCalibration:
                 or not np.isfinite(self.saturation_limit)):
             raise InputError("saturation_limit must be a finite absorbance",
                              field="saturation_limit")
-        limits = None if self.anchor_limits is None else _pair(self.anchor_limits, "anchor_limits")
+        limits = (None if self.anchor_limits is None
+                  else _pair(self.anchor_limits, "anchor_limits", "absorbances"))
         return band, anchors, limits
 
     def _window(self, axis: np.ndarray) -> _BandWindow:
@@ -261,7 +262,8 @@ class BandCalibration:
     def predict_values(self, values) -> np.ndarray:
         """Calibrated y for band values."""
         values = np.asarray(values, dtype=np.float64)
-        return np.vander(values.reshape(-1), self.coefficients_.size, increasing=True) @ self.coefficients_
+        Z = np.vander(values.reshape(-1), self.coefficients_.size, increasing=True)
+        return Z @ self.coefficients_
 
     def predict(self, X, axis=None) -> np.ndarray:
         """y for spectra on the model axis (``axis`` only to check/reorder them)."""

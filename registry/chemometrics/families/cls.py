@@ -190,7 +190,8 @@ class ClassicalLeastSquares:
             self._set_K(K, project)
             if n < 3:
                 raise InputError("the residual limit needs at least 3 spectra", field="X")
-            E = Xp - _concentrations(self.projected_K_, Xp, bool(self.non_negative)) @ self.projected_K_
+            fitted = _concentrations(self.projected_K_, Xp, bool(self.non_negative))
+            E = Xp - fitted @ self.projected_K_
         else:
             C = self._check_concentrations(C, n)
             m = C.shape[1]

@@ -43,6 +43,7 @@ SPACES = ("spectra", "scores")
 WEIGHTS = ("distance", "uniform")
 FLAGS = ("nearest_neighbour",)
 _BLOCK = 256  # query rows per distance block: bounded memory for large sets
+_SPARE = 4
 
 
 def _k_nearest(Z: np.ndarray, points: np.ndarray, k: int, exclude_self: bool = False):
@@ -57,11 +58,18 @@ def _k_nearest(Z: np.ndarray, points: np.ndarray, k: int, exclude_self: bool = F
         if exclude_self:
             rows = np.arange(block.shape[0])
             d2[rows, start + rows] = np.inf
-        cand = np.argpartition(d2, k - 1, axis=1)[:, :k] if k < points.shape[0] else \
-            np.tile(np.arange(points.shape[0]), (block.shape[0], 1))
-        # distances of the chosen few recomputed directly: no cancellation error
+        # a few spare candidates: the expansion above can misorder near-ties by rounding
+        n_cand = min(k + _SPARE, points.shape[0])
+        if n_cand < points.shape[0]:
+            cand = np.argpartition(d2, n_cand - 1, axis=1)[:, :n_cand]
+        else:
+            cand = np.tile(np.arange(points.shape[0]), (block.shape[0], 1))
+        if exclude_self:
+            cand = np.where(cand == (start + np.arange(block.shape[0]))[:, None], -1, cand)
+        # distances of the candidates recomputed directly: no cancellation error
         exact = np.linalg.norm(block[:, None, :] - points[cand], axis=2)
-        order = np.lexsort((cand, exact), axis=1)
+        exact[cand < 0] = np.inf
+        order = np.lexsort((cand, exact), axis=1)[:, :k]
         idx[start:start + _BLOCK] = np.take_along_axis(cand, order, axis=1)
         dist[start:start + _BLOCK] = np.take_along_axis(exact, order, axis=1)
     return idx, dist
@@ -224,7 +232,8 @@ class NeighbourLookup:
 
     def state_json(self) -> dict[str, Any]:
         return {"family": self.family, "n_neighbors": int(self.n_neighbors),
-                "space": self.space, "n_components": self.n_components,
+                "space": self.space,
+                "n_components": None if self.n_components is None else int(self.n_components),
                 "explained_variance": float(self.explained_variance), "weights": self.weights,
                 "distance_limit_given": self.distance_limit is not None,
                 "distance_limit": self.distance_limit_, "n_samples": self.n_samples_}

@@ -31,7 +31,8 @@ def test_lorentzian_area_equals_pi_height_halfwidth():
     axis = np.arange(0.0, 3200.0, 0.25)
     spectrum = lorentzian(axis, A, x0, gamma)
     for L in (40.0, 400.0, 1500.0):
-        exact = 2 * A * gamma * np.arctan(L / gamma) - 2 * L * A * gamma ** 2 / (L ** 2 + gamma ** 2)
+        chord = 2 * L * A * gamma ** 2 / (L ** 2 + gamma ** 2)
+        exact = 2 * A * gamma * np.arctan(L / gamma) - chord
         area = band_values(spectrum, axis, (x0 - L, x0 + L))[0]
         assert area == pytest.approx(exact, rel=1e-5)
     # the finite window misses about 4γ/(πL) of π·A·γ (series of arctan)
@@ -97,9 +98,10 @@ def test_linear_fit_statistics_equal_scipy_linregress(series):
     assert (se0, se1) == pytest.approx((ref.intercept_stderr, ref.stderr), rel=1e-9)
     assert model.statistics_["r2"] == pytest.approx(ref.rvalue ** 2, rel=1e-9)
     resid = y - (b0 + b1 * model.calibration_values_)
-    assert model.statistics_["sec"] == pytest.approx(np.sqrt(resid @ resid / (y.size - 2)), rel=1e-9)
-    np.testing.assert_allclose(model.predict(X[:, ::-1], axis[::-1]), b0 + b1 * model.calibration_values_,
-                               rtol=1e-12)
+    sec = np.sqrt(resid @ resid / (y.size - 2))
+    assert model.statistics_["sec"] == pytest.approx(sec, rel=1e-9)
+    np.testing.assert_allclose(model.predict(X[:, ::-1], axis[::-1]),
+                               b0 + b1 * model.calibration_values_, rtol=1e-12)
 
 
 def test_quadratic_fit_equals_numpy_polyfit(series):
@@ -134,13 +136,14 @@ def test_state_round_trip_is_bit_identical_and_hashed(series):
     X, y, axis = series
     model = BandCalibration(band=(1640, 1760), degree=2).fit(X, y, axis)
     blob = family_to_bytes(model, metadata={"property": "AROMATICS"})
-    loaded, meta, _ = family_from_bytes(blob, family_sha256(model, metadata={"property": "AROMATICS"}))
+    sha = family_sha256(model, metadata={"property": "AROMATICS"})
+    loaded, meta, _ = family_from_bytes(blob, sha)
     assert meta == {"property": "AROMATICS"}
     np.testing.assert_array_equal(loaded.predict(X[:, ::-1]), model.predict(X[:, ::-1]))
     assert loaded.check(X[:, ::-1]).records() == model.check(X[:, ::-1]).records()
     assert family_to_bytes(loaded, metadata={"property": "AROMATICS"}) == blob
     with pytest.raises(IntegrityError):
-        family_from_bytes(blob[:-1] + b"\1", family_sha256(model, metadata={"property": "AROMATICS"}))
+        family_from_bytes(blob[:-1] + b"\1", sha)
 
 
 def test_bad_band_settings_are_refused(series):

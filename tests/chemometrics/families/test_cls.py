@@ -76,7 +76,8 @@ def test_non_negative_with_free_baseline_equals_bounded_least_squares(pure, mixt
     C, X, rng = mixtures
     x = np.array([0.0, 0.5, 0.02]) @ pure - 0.03 + 2e-5 * (AXIS - 900) \
         + rng.normal(0, 0.01, AXIS.size)
-    model = ClassicalLeastSquares(pure_spectra=pure, non_negative=True, baseline="linear").fit(X, axis=AXIS)
+    model = ClassicalLeastSquares(pure_spectra=pure, non_negative=True,
+                                  baseline="linear").fit(X, axis=AXIS)
     G = model.baseline_basis_
     design = np.vstack([pure, G]).T
     ref = lsq_linear(design, x, bounds=([0, 0, 0, -np.inf, -np.inf], np.inf), tol=1e-14,
@@ -171,7 +172,8 @@ def test_state_round_trip_is_bit_identical(pure, mixtures):
     # source: artifact contract (plain arrays + JSON, hash checked on load)
     C, X, rng = mixtures
     noisy = X + rng.normal(0, SIGMA, X.shape)
-    for model in (ClassicalLeastSquares(baseline="linear", non_negative=True).fit(noisy, C, axis=AXIS),
+    for model in (ClassicalLeastSquares(baseline="linear", non_negative=True)
+                  .fit(noisy, C, axis=AXIS),
                   ClassicalLeastSquares(pure_spectra=pure).fit(noisy)):
         loaded, _, _ = family_from_bytes(family_to_bytes(model), family_sha256(model))
         np.testing.assert_array_equal(loaded.predict(noisy), model.predict(noisy))

@@ -36,7 +36,8 @@ def assert_matches_sklearn(model, reference, cal, y, queries, space=lambda X: X)
     np.testing.assert_array_equal(res.values["neighbour_index"], ref_idx)
     np.testing.assert_allclose(res.values["neighbour_distance"], ref_dist, rtol=1e-8)
     np.testing.assert_array_equal(res.values["neighbour_value"], y[ref_idx])
-    np.testing.assert_array_equal(res.flags["nearest_neighbour"], ref_dist[:, 0] > model.distance_limit_)
+    np.testing.assert_array_equal(res.flags["nearest_neighbour"],
+                                  ref_dist[:, 0] > model.distance_limit_)
     return res
 
 
@@ -75,7 +76,8 @@ def test_default_limit_is_largest_nearest_neighbour_distance(data):
     # first is the sample itself) — the rule of the diagnostics' nearest-neighbour check
     cal, y, _ = data
     dist, _ = NearestNeighbors(n_neighbors=2, algorithm="ball_tree").fit(cal).kneighbors(cal)
-    assert NeighbourLookup().fit(cal, y).distance_limit_ == pytest.approx(dist[:, 1].max(), rel=1e-9)
+    limit = NeighbourLookup().fit(cal, y).distance_limit_
+    assert limit == pytest.approx(dist[:, 1].max(), rel=1e-9)
     given = NeighbourLookup(distance_limit=1e9).fit(cal, y)
     assert not np.isnan(given.predict(cal)).any()
 
@@ -84,7 +86,8 @@ def test_spread_and_state_round_trip(data):
     # source: artifact contract (plain arrays + JSON, hash checked on load)
     cal, y, queries = data
     for model in (NeighbourLookup(n_neighbors=3).fit(cal, y),
-                  NeighbourLookup(n_neighbors=2, space="scores", explained_variance=0.999).fit(cal, y)):
+                  NeighbourLookup(n_neighbors=2, space="scores",
+                                  explained_variance=0.999).fit(cal, y)):
         res = model.check(queries)
         values = res.values["neighbour_value"]
         np.testing.assert_array_equal(res.values["neighbour_range"], values.max(1) - values.min(1))
