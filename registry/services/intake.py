@@ -23,7 +23,7 @@ from ..spectra.axes import WAVENUMBER
 from ..spectra.formats import detect_format, iter_csv_spectra, read_jcamp
 from ..storage.models import Grade, Instrument, Sample, Site
 from ..spectra.record import content_sha256_rows
-from ..storage.bulk import insert_rows, select_in
+from ..storage.bulk import in_blocks, insert_rows, select_in
 from ..storage.spectra_store import (SPECTRUM_COLUMNS, existing_hashes, get_or_create_axis,
                                      insert_spectra)
 from ..storage.types import utcnow
@@ -463,8 +463,7 @@ def spectra_of_samples(session: Session, actor: Actor, sample_ids: list[str]) ->
 
     authorize(actor, Action.VIEW)
     out: list[int] = []
-    for start in range(0, len(sample_ids), 900):
-        part = sample_ids[start:start + 900]
+    for part in in_blocks(sample_ids):
         out += session.exec(select(Spectrum.id).join(Sample, Sample.id == Spectrum.sample_id)
                             .where(Sample.external_id.in_(part))).all()
     return sorted(out)
