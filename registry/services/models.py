@@ -34,6 +34,9 @@ DEFAULT_RECIPE: list[dict[str, Any]] = [
 # 95 % limits would flag about one in six routine spectra by chance (domain notes §4 allow
 # 95 % or 99 %).
 DIAGNOSTICS_CONFIDENCE = 0.99
+#: Validation kinds: the first validation of a version, local (one site or instrument) and
+#: general (independent set covering the scope).
+VALIDATION_KINDS = ("initial", "local", "general")
 
 
 def get_model(session: Session, label: str) -> ModelVersion:
@@ -179,7 +182,7 @@ def validate_model(session: Session, actor: Actor, label: str, *, calset_name: s
     on an approved or active model it renews the revalidation date.
     """
     authorize(actor, Action.MODEL_VALIDATE)
-    if kind not in ("initial", "local", "general"):
+    if kind not in VALIDATION_KINDS:
         raise InputError("validation kind must be initial, local or general", field="--kind")
     mv = get_model(session, label)
     from ..lifecycle.states import LifecycleAction, check_transition

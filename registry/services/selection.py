@@ -74,7 +74,7 @@ from .references import calibration_values
 __all__ = ["METHODS", "METRICS", "POOLS", "SEND_LIST_COLUMNS", "CandidatePool", "ScoreSpace",
            "SelectionRequest", "SelectionResult", "SelectionSetting", "build_pool", "build_space",
            "check_request", "choose_picks", "coverage_benefit", "explain_picks", "pick_count",
-           "resolve_request", "run_selection", "samples_by_id", "selection_parameters",
+           "resolve_request", "run_request", "run_selection", "samples_by_id", "selection_parameters",
            "store_run"]
 
 POOLS = ("unreferenced", "outside-coverage")
@@ -797,6 +797,15 @@ def run_selection(session: Session, actor: Actor, *, property_codes: list[str], 
                             budget=budget, pool=pool, since=since, until=until, site=site,
                             recipe=recipe, explained_variance=explained_variance,
                             n_components=n_components, metric=metric)
+    return run_request(session, actor, request, progress=progress, store=store,
+                       ignore_run_id=ignore_run_id)
+
+
+def run_request(session: Session, actor: Actor, request: SelectionRequest, *,
+                progress: Progress | None = None, store: bool = True,
+                ignore_run_id: int | None = None) -> SelectionResult:
+    """:func:`run_selection` for a request already checked by :func:`check_request`."""
+    authorize(actor, Action.SELECTION_RUN)
     setting = resolve_request(session, request)
     candidates = build_pool(session, setting, ignore_run_id=ignore_run_id, progress=progress)
     space = build_space(setting, candidates)
