@@ -117,7 +117,8 @@ def instrument_add(serial: str, site: Annotated[str, typer.Option("--site")],
 
 @instrument_app.command("event")
 @handle_errors
-def instrument_event(serial: str, kind: Annotated[choice(svc.INSTRUMENT_EVENT_KINDS), typer.Option("--kind")],
+def instrument_event(serial: str,
+                     kind: Annotated[choice(svc.INSTRUMENT_EVENT_KINDS), typer.Option("--kind")],
                      note: Annotated[str, typer.Option("--note")] = "",
                      db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Record a service event; models active on the instrument become due for revalidation."""

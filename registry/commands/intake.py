@@ -34,9 +34,11 @@ def _rejected(exc: ImportRejected) -> None:
 def import_spectra(paths: Annotated[list[Path], typer.Argument(help="Files or folders.")],
                    instrument: Annotated[Optional[str], typer.Option("--instrument")] = None,
                    input_format: Annotated[choice(("auto", *FILE_FORMATS)), typer.Option(
-                       "--input-format", help="File format (auto: from extension and content).")] = "auto",
+                       "--input-format",
+                       help="File format (auto: from extension and content).")] = "auto",
                    on_duplicate: Annotated[choice(svc.DUPLICATE_POLICIES), typer.Option(
-                       "--on-duplicate", help="A spectrum already stored: refuse the import, or skip it.")] = "error",
+                       "--on-duplicate",
+                       help="A spectrum already stored: refuse the import, or skip it.")] = "error",
                    sample_id_field: Annotated[str, typer.Option(
                        "--sample-id-field", help="JCAMP-DX header holding the sample id.")] = "TITLE",
                    db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
@@ -83,7 +85,8 @@ def export_spectra(sample: Annotated[list[str], typer.Option("--sample", help="S
                    file_format: Annotated[choice(FILE_FORMATS), typer.Option("--file-format")] = "jcamp",
                    out: Annotated[Path, typer.Option(
                        "--out", help="Folder for JCAMP-DX files, file for CSV.")] = Path("export"),
-                   form: Annotated[choice(JCAMP_FORMS), typer.Option("--jcamp-form", case_sensitive=False)] = "AFFN",
+                   form: Annotated[choice(JCAMP_FORMS), typer.Option(
+                       "--jcamp-form", case_sensitive=False)] = "AFFN",
                    db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Export the spectra of samples as JCAMP-DX files or one CSV."""
     _check_export_target(out, file_format)

@@ -32,8 +32,9 @@ def _steps(s, **kw):
 
 
 def test_check_request_needs_no_database_and_normalises():
+    east = timezone(timedelta(hours=2))
     req = svc.check_request(property_codes=[" ron", "mon "], grade="PREM95", method="duplex",
-                            budget=2000.0, since=datetime(2027, 1, 2, 9, tzinfo=timezone(timedelta(hours=2))),
+                            budget=2000.0, since=datetime(2027, 1, 2, 9, tzinfo=east),
                             recipe=[{"step": "savgol", "window_length": 7, "polyorder": 2}])
     assert req.property_codes == ("RON", "MON") and req.n is None and req.budget == 2000.0
     assert req.since == datetime(2027, 1, 2, 7, tzinfo=timezone.utc)

@@ -17,6 +17,7 @@ from registry.spectra.formats.jcamp import JCAMP_FORMS, normalise_label, read_jc
 FILE_FORMATS = ("jcamp", "csv")
 
 __all__ = [
-    "CsvChunk", "FILE_FORMATS", "JCAMP_FORMS", "detect_format", "iter_csv_spectra", "normalise_label", "read_jcamp",
+    "CsvChunk", "FILE_FORMATS", "JCAMP_FORMS", "detect_format", "iter_csv_spectra",
+    "normalise_label", "read_jcamp",
     "read_spectra_file", "write_csv_spectra", "write_jcamp",
 ]
