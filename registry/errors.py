@@ -11,8 +11,11 @@ class RegistryError(Exception):
     """Base class for every error caused by input or by a refused action."""
 
 
-class InputError(RegistryError):
+class InputError(RegistryError, ValueError):
     """Bad input data, located as precisely as the source allows.
+
+    A :class:`ValueError` too, so numerical code called with a bad argument fails the
+    way scikit-learn and numpy callers expect.
 
     Parameters
     ----------

@@ -11,7 +11,8 @@ from ..errors import InputError
 from ..services import admin as svc
 from ..services.status import registry_status
 from ..storage.engine import get_engine, mask_url, resolve_url, session_scope, upgrade
-from .common import AsOpt, DbOpt, FormatOpt, emit, handle_errors, login, table, transaction
+from .common import (AsOpt, DbOpt, FormatOpt, Output, choice, emit, handle_errors, login, table,
+                     transaction)
 
 user_app = typer.Typer(help="Users and their roles.", no_args_is_help=True)
 site_app = typer.Typer(help="Laboratory sites.", no_args_is_help=True)
@@ -20,7 +21,7 @@ grade_app = typer.Typer(help="Product grades.", no_args_is_help=True)
 
 
 @handle_errors
-def init(db: DbOpt = None, fmt: FormatOpt = "table") -> None:
+def init(db: DbOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Create or upgrade the registry database to the current schema and seed the catalog."""
     url = resolve_url(db)
     upgrade(url)
@@ -33,7 +34,7 @@ def init(db: DbOpt = None, fmt: FormatOpt = "table") -> None:
 
 
 @handle_errors
-def status(db: DbOpt = None, fmt: FormatOpt = "table") -> None:
+def status(db: DbOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Database URL (password masked), schema revision and row counts."""
     url = resolve_url(db)
     from sqlmodel import Session
@@ -55,7 +56,7 @@ def user_add(name: str,
              full_name: Annotated[str, typer.Option("--full-name")] = "",
              password_stdin: Annotated[bool, typer.Option("--password-stdin",
                                                           help="Read the new user's password from stdin.")] = False,
-             db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+             db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Add a user. The first user of an empty registry must be an admin and needs no --as."""
     roles = [r.strip() for item in role for r in item.split(",") if r.strip()]
     with transaction(db) as session:
@@ -71,7 +72,7 @@ def user_add(name: str,
 
 @user_app.command("list")
 @handle_errors
-def user_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+def user_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """List users and roles."""
     with transaction(db) as session:
         users = svc.list_users(session, login(session, as_user))
@@ -81,7 +82,7 @@ def user_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table")
 
 @user_app.command("deactivate")
 @handle_errors
-def user_deactivate(name: str, db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+def user_deactivate(name: str, db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Deactivate a user (users are never deleted: the audit trail names them)."""
     with transaction(db) as session:
         user = svc.deactivate_user(session, login(session, as_user), name)
@@ -91,7 +92,7 @@ def user_deactivate(name: str, db: DbOpt = None, as_user: AsOpt = None, fmt: For
 @site_app.command("add")
 @handle_errors
 def site_add(name: str, timezone: Annotated[str, typer.Option("--timezone")] = "UTC",
-             db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+             db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Add a laboratory site."""
     with transaction(db) as session:
         site = svc.add_site(session, login(session, as_user), name, timezone=timezone)
@@ -105,7 +106,7 @@ def instrument_add(serial: str, site: Annotated[str, typer.Option("--site")],
                    resolution: Annotated[float, typer.Option("--resolution", help="cm⁻¹")] = 4.0,
                    pathlength_um: Annotated[float, typer.Option("--pathlength-um")] = 50.0,
                    description: Annotated[str, typer.Option("--description")] = "",
-                   db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+                   db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Register an analyzer at a site."""
     with transaction(db) as session:
         inst = svc.add_instrument(session, login(session, as_user), serial, site=site,
@@ -116,9 +117,10 @@ def instrument_add(serial: str, site: Annotated[str, typer.Option("--site")],
 
 @instrument_app.command("event")
 @handle_errors
-def instrument_event(serial: str, kind: Annotated[str, typer.Option("--kind", help="service, repair, requalification or relocation")],
+def instrument_event(serial: str,
+                     kind: Annotated[choice(svc.INSTRUMENT_EVENT_KINDS), typer.Option("--kind")],
                      note: Annotated[str, typer.Option("--note")] = "",
-                     db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+                     db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Record a service event; models active on the instrument become due for revalidation."""
     with transaction(db) as session:
         ev = svc.record_instrument_event(session, login(session, as_user), serial, kind, note)
@@ -129,7 +131,7 @@ def instrument_event(serial: str, kind: Annotated[str, typer.Option("--kind", he
 @handle_errors
 def grade_add(code: str, name: Annotated[str, typer.Option("--name")] = "",
               family: Annotated[str, typer.Option("--family")] = "gasoline",
-              db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+              db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Add a product grade."""
     with transaction(db) as session:
         grade = svc.add_grade(session, login(session, as_user), code, name=name, family=family)
@@ -142,7 +144,7 @@ property_app = typer.Typer(help="Fuel properties, their limits and acceptance cr
 
 @property_app.command("list")
 @handle_errors
-def property_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+def property_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Properties with units, plausibility limits and validation acceptance criteria."""
     from ..services.properties import list_properties
 
@@ -162,7 +164,7 @@ def property_edit(code: str, name: Annotated[Optional[str], typer.Option("--name
                   criterion: Annotated[Optional[list[str]], typer.Option(
                       "--criterion", help="NAME=VALUE acceptance override, e.g. "
                                           "max_sep_over_reproducibility=0.8; repeat.")] = None,
-                  db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+                  db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Edit a property (admin)."""
     from ..services.properties import edit_property
 

@@ -8,7 +8,7 @@ from typing import Annotated, Optional
 import typer
 
 from ..services import calibration as svc
-from .common import AsOpt, DbOpt, FormatOpt, emit, handle_errors, login, table, transaction
+from .common import AsOpt, DbOpt, FormatOpt, Output, emit, handle_errors, login, table, transaction
 
 calset_app = typer.Typer(help="Frozen calibration sets.", no_args_is_help=True)
 
@@ -24,7 +24,7 @@ def calset_create(name: str,
                       "--validation", help="duplex:FRACTION splits off a validation part.")] = None,
                   validation_samples: Annotated[Optional[Path], typer.Option("--validation-samples")] = None,
                   description: Annotated[str, typer.Option("--description")] = "",
-                  db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+                  db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Freeze a calibration set (membership, reference values, spectra) under a content hash."""
     ids = svc.read_sample_list(samples) if samples else None
     val_ids = svc.read_sample_list(validation_samples) if validation_samples else None
@@ -40,7 +40,7 @@ def calset_create(name: str,
 
 @calset_app.command("list")
 @handle_errors
-def calset_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+def calset_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """List calibration sets."""
     with transaction(db) as session:
         rows = svc.list_calibration_sets(session, login(session, as_user))

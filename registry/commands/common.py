@@ -1,7 +1,11 @@
 """Shared CLI plumbing: database and acting-user options, output, error handling.
 
-Commands never touch SQL: they open one transaction, authenticate, call one
-service function, and print its result (a JSON document with ``--format json``).
+Commands never touch SQL: they check every option, then open one transaction,
+authenticate, call one service function, and print its result (a JSON document
+with ``--format json``). Nothing is checked after the commit: an option that is
+wrong must fail before anything is stored. A file a command writes as part of
+its action is staged inside the transaction and put in place after the commit
+(:func:`staged_output`).
 """
 
 from __future__ import annotations
@@ -11,18 +15,24 @@ import getpass
 import json
 import os
 import sys
+import tempfile
 from contextlib import contextmanager
-from datetime import date, datetime
-from typing import Annotated, Any, Callable, Iterator, Optional
+from datetime import datetime
+from enum import Enum
+from pathlib import Path
+from typing import Annotated, Any, Callable, Iterator, Literal, Optional
+
 
 import typer
 from sqlalchemy.exc import SQLAlchemyError
 from sqlmodel import Session
 
-from ..errors import AuthenticationError, RegistryError
+from ..errors import AuthenticationError, InputError, RegistryError
+from ..plain_json import plain_json
 from ..services.auth import authenticate
 from ..services.context import Actor
 from ..storage.engine import get_engine, resolve_url, session_scope
+from .records import output_record
 
 DbOpt = Annotated[Optional[str], typer.Option(
     "--db", help="Database URL or SQLite file (default: $SPECLEDGER_DATABASE_URL or ./specledger.db).",
@@ -30,7 +40,31 @@ DbOpt = Annotated[Optional[str], typer.Option(
 AsOpt = Annotated[Optional[str], typer.Option(
     "--as", help="Acting user (default: $SPECLEDGER_USER). Password from a prompt or "
                  "$SPECLEDGER_PASSWORD.", show_default=False)]
-FormatOpt = Annotated[str, typer.Option("--format", help="Output: table or json.")]
+
+
+class Output(str, Enum):
+    """What a command prints: ``text`` for people, ``json`` for programs (every command)."""
+
+    text = "text"
+    json = "json"
+
+
+class DocumentOutput(str, Enum):
+    """Output of a command that renders a whole document (``trace``): also ``html``."""
+
+    text = "text"
+    json = "json"
+    html = "html"
+
+
+FormatOpt = Annotated[Output, typer.Option("--format", case_sensitive=False,
+                                           help="Output: text or json.")]
+
+
+def choice(values) -> Any:
+    """The type of an option with a fixed set of values (``Annotated[choice(...), typer.Option(...)]``):
+    anything else is refused by the parser, before any transaction (exit status 2)."""
+    return Literal[tuple(str(v) for v in values)]
 
 
 def fail(message: str, code: int = 2) -> None:
@@ -92,40 +126,87 @@ def login(session: Session, as_user: str | None) -> Actor:
     return authenticate(session, name, read_password(f"Password for {name}"))
 
 
-def jsonable(obj: Any) -> Any:
-    if isinstance(obj, datetime):
-        return obj.isoformat()
-    if isinstance(obj, date):
-        return obj.isoformat()
-    if isinstance(obj, bytes):
-        return None
-    if hasattr(obj, "model_dump"):
-        return {k: jsonable(v) for k, v in obj.model_dump().items()
-                if not isinstance(v, bytes) and k != "password_hash"}
-    if isinstance(obj, dict):
-        return {str(k): jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [jsonable(v) for v in obj]
-    try:
-        import numpy as np
-
-        if isinstance(obj, np.generic):
-            return obj.item()
-        if isinstance(obj, np.ndarray):
-            return obj.tolist()
-    except ImportError:  # pragma: no cover
-        pass
-    return obj
+def json_text(document: Any) -> str:
+    """``document`` as indented JSON; stored records through their allow-lists
+    (:data:`registry.commands.records.RECORD_FIELDS`)."""
+    return json.dumps(plain_json(document, default=output_record), indent=2, ensure_ascii=False)
 
 
-def emit(fmt: str, document: Any, text: str | Callable[[], str]) -> None:
-    """Print ``document`` as JSON, or the human-readable ``text``."""
-    if fmt == "json":
-        typer.echo(json.dumps(jsonable(document), indent=2, ensure_ascii=False, default=str))
-    elif fmt in ("table", "text"):
-        typer.echo(text() if callable(text) else text)
+def emit(fmt: Output | str, document: Any, text: str | Callable[[], str]) -> None:
+    """Print ``document`` as JSON, or the human-readable ``text``.
+
+    ``fmt`` was checked by the option parser (:class:`Output`), before the transaction.
+    """
+    if Output(fmt) is Output.json:
+        typer.echo(json_text(document))
     else:
-        fail(f"unknown --format {fmt!r}; use table or json")
+        typer.echo(text() if callable(text) else text)
+
+
+# --------------------------------------------------------------------------- output files
+def check_output_path(path: Path, option: str = "--out") -> Path:
+    """Refuse, before anything is done, an output file that cannot be written."""
+    path = Path(path)
+    parent = path.parent if str(path.parent) else Path(".")
+    if path.is_dir():
+        raise InputError("is a folder; give a file name", file=str(path), field=option)
+    if not parent.is_dir():
+        raise InputError(f"folder {parent} does not exist", file=str(path), field=option)
+    if not os.access(parent, os.W_OK | os.X_OK) or (path.exists() and not os.access(path, os.W_OK)):
+        raise InputError("not writable", file=str(path), field=option)
+    return path
+
+
+class StagedFile:
+    """An output file written during the user action and put in place after the commit.
+
+    :meth:`write` writes a temporary file beside the target (a full disk or a
+    permission error surfaces while the transaction can still roll back);
+    :meth:`publish` renames it over the target (atomic within one folder).
+    """
+
+    def __init__(self, path: Path, option: str = "--out"):
+        self.path = check_output_path(path, option)
+        self.option = option
+        self._staged: str | None = None
+
+    def write(self, text: str) -> None:
+        self.discard()
+        try:
+            fd, staged = tempfile.mkstemp(dir=self.path.parent, prefix=f".{self.path.name}.",
+                                          suffix=".part")
+            self._staged = staged
+            with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+                fh.write(text)
+        except OSError as exc:
+            raise InputError(f"cannot write: {exc.strerror or exc}", file=str(self.path),
+                             field=self.option) from None
+
+    def publish(self) -> None:
+        if self._staged is not None:
+            os.replace(self._staged, self.path)
+            self._staged = None
+
+    def discard(self) -> None:
+        if self._staged is not None:
+            Path(self._staged).unlink(missing_ok=True)
+            self._staged = None
+
+
+@contextmanager
+def staged_output(path: Path | None, option: str = "--out") -> Iterator[StagedFile | None]:
+    """``with staged_output(out) as file, transaction(db) as session:`` — the path is
+    checked on entry, the file is published only if the transaction committed (the
+    transaction's block ends first) and removed otherwise."""
+    if path is None:
+        yield None
+        return
+    staged = StagedFile(path, option)
+    try:
+        yield staged
+        staged.publish()
+    finally:
+        staged.discard()
 
 
 def table(rows: list[dict[str, Any]], columns: list[str] | None = None) -> str:

@@ -9,14 +9,14 @@ from typing import Annotated
 import typer
 
 from ..errors import RegistryError
-from .common import FormatOpt, emit, handle_errors
+from .common import FormatOpt, Output, emit, handle_errors
 
 
 @handle_errors
 def demo(db: Annotated[Path, typer.Option("--db", help="SQLite file for the demo registry.")] = Path("demo.db"),
          seed: Annotated[int, typer.Option("--seed")] = 7,
          force: Annotated[bool, typer.Option("--force", help="Rebuild an existing demo registry.")] = False,
-         fmt: FormatOpt = "table") -> None:
+         fmt: FormatOpt = Output.text) -> None:
     """Build a demo registry: fourteen invented months at two invented fuel labs."""
     from seed_demo.scenario import build_demo
     from ..storage.engine import dispose_engines, make_engine, upgrade

@@ -13,12 +13,13 @@ from typing import Annotated, Optional
 import typer
 
 from ..errors import InputError
+from ..lifecycle.revalidation import TriggerKind
 from ..services import lifecycle as svc
 from ..services import qc as qc_svc
 from ..services import revalidation as reval_svc
 from ..storage.models import Deployment
-from .common import (AsOpt, DbOpt, FormatOpt, emit, handle_errors, login, read_password, table,
-                     transaction)
+from .common import (AsOpt, DbOpt, FormatOpt, Output, choice, emit, handle_errors, login,
+                     read_password, table, transaction)
 from .models import model_app
 
 qc_app = typer.Typer(help="QC results of models in use and their control charts.",
@@ -38,7 +39,7 @@ def _signer_password(actor_name: str) -> str:
 # --------------------------------------------------------------------------- model moves
 
 def model_submit(version: str, reason: ReasonOpt = "", db: DbOpt = None, as_user: AsOpt = None,
-                 fmt: FormatOpt = "table") -> None:
+                 fmt: FormatOpt = Output.text) -> None:
     """Submit your validated model version for review."""
     with transaction(db) as session:
         mv = svc.submit_model(session, login(session, as_user), version, reason)
@@ -65,13 +66,13 @@ def _signed(fn, version: str, fmt: str, db, as_user, verb: str, **kw) -> None:
 
 
 def model_approve(version: str, reason: ReasonOpt = "", db: DbOpt = None, as_user: AsOpt = None,
-                  fmt: FormatOpt = "table") -> None:
+                  fmt: FormatOpt = Output.text) -> None:
     """Approve a version in review (signed; not its author, not its calibration-set creator)."""
     _signed(svc.approve_model, version, fmt, db, as_user, "approved", reason=reason)
 
 
 def model_reject(version: str, reason: ReasonOpt = "", db: DbOpt = None, as_user: AsOpt = None,
-                 fmt: FormatOpt = "table") -> None:
+                 fmt: FormatOpt = Output.text) -> None:
     """Reject a version (signed, with a reason); a fix is trained as a new version."""
     _signed(svc.reject_model, version, fmt, db, as_user, "rejected", reason=reason)
 
@@ -79,7 +80,7 @@ def model_reject(version: str, reason: ReasonOpt = "", db: DbOpt = None, as_user
 def model_activate(version: str,
                    instrument: Annotated[str, typer.Option("--instrument", help="Instrument serial.")],
                    reason: ReasonOpt = "", db: DbOpt = None, as_user: AsOpt = None,
-                   fmt: FormatOpt = "table") -> None:
+                   fmt: FormatOpt = Output.text) -> None:
     """Deploy an approved version on an instrument (signed); supersedes the one active there."""
     _signed(svc.activate_model, version, fmt, db, as_user, f"activated on {instrument}",
             instrument=instrument, reason=reason)
@@ -88,7 +89,7 @@ def model_activate(version: str,
 def model_retire(version: str, reason: ReasonOpt = "",
                  instrument: Annotated[Optional[str], typer.Option(
                      "--instrument", help="Retire on this instrument only (default: everywhere).")] = None,
-                 db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+                 db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Take a version out of service (signed, with a reason)."""
     _signed(svc.retire_model, version, fmt, db, as_user,
             "retired" + (f" on {instrument}" if instrument else ""), reason=reason,
@@ -96,7 +97,7 @@ def model_retire(version: str, reason: ReasonOpt = "",
 
 
 def model_signatures(version: str, db: DbOpt = None, as_user: AsOpt = None,
-                     fmt: FormatOpt = "table") -> None:
+                     fmt: FormatOpt = Output.text) -> None:
     """Signatures on a version and whether what they signed is still unchanged."""
     with transaction(db) as session:
         rows = svc.model_signatures(session, login(session, as_user), version)
@@ -121,7 +122,7 @@ def qc_add(instrument: Annotated[str, typer.Option("--instrument")],
                "--grade", help="When several grades' models are active on the instrument.")] = None,
            at: Annotated[Optional[str], typer.Option(
                "--at", help="When measured (ISO 8601; without an offset: the site's local time; default now).")] = None,
-           db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+           db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Record a QC result; the chart is checked and a signal raises a revalidation trigger."""
     with transaction(db) as session:
         r = qc_svc.add_qc_result(session, login(session, as_user), instrument=instrument,
@@ -144,7 +145,7 @@ def qc_chart(instrument: Annotated[str, typer.Option("--instrument")],
              material: Annotated[str, typer.Option("--material")],
              prop: Annotated[Optional[str], typer.Option("--property")] = None,
              model: Annotated[Optional[str], typer.Option("--model")] = None,
-             db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+             db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Text summary of a control chart (individuals, moving range, EWMA) and its signals."""
     with transaction(db) as session:
         doc = qc_svc.qc_chart(session, login(session, as_user), instrument=instrument,
@@ -179,7 +180,7 @@ def qc_chart(instrument: Annotated[str, typer.Option("--instrument")],
 @qc_app.command("clear")
 @handle_errors
 def qc_clear(trigger: int, reason: ReasonOpt = "", db: DbOpt = None, as_user: AsOpt = None,
-             fmt: FormatOpt = "table") -> None:
+             fmt: FormatOpt = Output.text) -> None:
     """Clear a QC signal once its cause is found (reviewer)."""
     with transaction(db) as session:
         t = qc_svc.clear_qc_signal(session, login(session, as_user), trigger, reason)
@@ -191,7 +192,7 @@ def qc_clear(trigger: int, reason: ReasonOpt = "", db: DbOpt = None, as_user: As
 @handle_errors
 def due(within: Annotated[Optional[int], typer.Option(
             "--within", help="Only versions due within DAYS (overdue always shown).")] = None,
-        db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+        db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Approved and active model versions by revalidation due date, overdue first."""
     with transaction(db) as session:
         rows = reval_svc.due_list(session, login(session, as_user), within_days=within)
@@ -220,7 +221,7 @@ def policy_set(prop: Annotated[str, typer.Option("--property")],
                window: Annotated[Optional[int], typer.Option("--coverage-window-days")] = None,
                threshold: Annotated[Optional[float], typer.Option("--coverage-threshold")] = None,
                min_count: Annotated[Optional[int], typer.Option("--coverage-min-count")] = None,
-               db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+               db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Set the revalidation interval and coverage-drift settings of a property (and grade)."""
     with transaction(db) as session:
         row = reval_svc.set_policy(session, login(session, as_user), prop, grade, interval_days,
@@ -233,7 +234,7 @@ def policy_set(prop: Annotated[str, typer.Option("--property")],
 
 @policy_app.command("list")
 @handle_errors
-def policy_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+def policy_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Revalidation policies (properties without one use 365 days)."""
     with transaction(db) as session:
         rows = reval_svc.list_policies(session, login(session, as_user))
@@ -243,10 +244,9 @@ def policy_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table
 @trigger_app.command("raise")
 @handle_errors
 def trigger_raise(version: str,
-                  kind: Annotated[str, typer.Option(
-                      "--kind", help="qc_signal, coverage_drift, instrument_service or method_change")],
+                  kind: Annotated[choice(k.value for k in TriggerKind), typer.Option("--kind")],
                   detail: Annotated[str, typer.Option("--detail", help="What happened.")] = "",
-                  db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+                  db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Make a model version due for revalidation now."""
     with transaction(db) as session:
         t = reval_svc.raise_trigger(session, login(session, as_user), version, kind, detail)
@@ -256,7 +256,7 @@ def trigger_raise(version: str,
 @trigger_app.command("clear")
 @handle_errors
 def trigger_clear(trigger: int, reason: ReasonOpt = "", db: DbOpt = None, as_user: AsOpt = None,
-                  fmt: FormatOpt = "table") -> None:
+                  fmt: FormatOpt = Output.text) -> None:
     """Withdraw an open trigger with a reason (QC signals: reviewer only)."""
     with transaction(db) as session:
         t = reval_svc.clear_trigger(session, login(session, as_user), trigger, reason)
@@ -267,7 +267,7 @@ def trigger_clear(trigger: int, reason: ReasonOpt = "", db: DbOpt = None, as_use
 @handle_errors
 def trigger_list(version: Annotated[Optional[str], typer.Option("--model")] = None,
                  all_: Annotated[bool, typer.Option("--all", help="Include cleared triggers.")] = False,
-                 db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+                 db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Revalidation triggers (open ones by default)."""
     with transaction(db) as session:
         rows = reval_svc.list_triggers(session, login(session, as_user), label=version,
@@ -299,7 +299,7 @@ def method_edit(code: str, prop: Annotated[str, typer.Option("--property")],
                 reproducibility: Annotated[Optional[str], typer.Option(
                     "--reproducibility", help="R: a number or a JSON precision spec.")] = None,
                 name: Annotated[Optional[str], typer.Option("--name")] = None,
-                db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+                db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Edit a reference method; a new name or precision makes the property's models due."""
     with transaction(db) as session:
         m = reval_svc.edit_method(session, login(session, as_user), code, prop, cost=cost,

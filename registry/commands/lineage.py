@@ -10,7 +10,8 @@ import typer
 
 from ..lineage.trace_render import render
 from ..services import audit as svc
-from .common import AsOpt, DbOpt, fail, handle_errors, login, transaction
+from .common import (AsOpt, DbOpt, DocumentOutput, FormatOpt, Output, handle_errors, login,
+                     staged_output, transaction)
 
 audit_app = typer.Typer(help="The tamper-evident audit trail.", no_args_is_help=True)
 
@@ -20,14 +21,12 @@ EXIT_NOT_INTACT = 1
 
 @audit_app.command("verify")
 @handle_errors
-def audit_verify(fmt: Annotated[str, typer.Option("--format", help="text or json.")] = "text",
+def audit_verify(fmt: FormatOpt = Output.text,
                  expect_head: Annotated[Optional[str], typer.Option(
                      "--expect-head", help="Head hash recorded earlier outside the registry; "
                                            "a different head means events were cut off the end.")] = None,
                  db: DbOpt = None, as_user: AsOpt = None) -> None:
     """Recompute the hash chain and every content hash; exit 1 if anything was altered."""
-    if fmt not in ("text", "json"):
-        fail(f"unknown --format {fmt!r}; use text or json")
     with transaction(db) as session:
         report = svc.verify_registry(session, login(session, as_user))
     doc = report.to_json()
@@ -37,7 +36,7 @@ def audit_verify(fmt: Annotated[str, typer.Option("--format", help="text or json
         doc["chain_problems"].append({"entity_type": "audit_event", "entity_id": None, "label": "",
                                       "message": f"head {report.head} differs from the expected "
                                                  f"{expect_head} (events removed from the end?)"})
-    if fmt == "json":
+    if fmt is Output.json:
         typer.echo(json.dumps(doc, indent=2, ensure_ascii=False))
     else:
         typer.echo(f"audit trail: {report.n_events} events, head {report.head}")
@@ -66,24 +65,21 @@ def trace(prediction: Annotated[Optional[int], typer.Option("--prediction", help
               "--sample", help="Sample id (SITE/SAMPLE if ids repeat across sites).")] = None,
           prop: Annotated[Optional[str], typer.Option("--property", help="With --sample.")] = None,
           model: Annotated[Optional[str], typer.Option("--model", help="Model version label.")] = None,
-          fmt: Annotated[str, typer.Option("--format", help="text, json or html.")] = "text",
+          fmt: Annotated[DocumentOutput, typer.Option(
+              "--format", case_sensitive=False, help="text, json or html.")] = DocumentOutput.text,
           out: Annotated[Optional[Path], typer.Option("--out", help="Write to this file.")] = None,
           db: DbOpt = None, as_user: AsOpt = None) -> None:
     """Everything a result rests on: model, approvals, calibration samples, reference results."""
-    if fmt not in ("text", "json", "html"):
-        fail(f"unknown --format {fmt!r}; use text, json or html")
-    with transaction(db) as session:
+    with staged_output(out) as out_file, transaction(db) as session:
         doc = svc.trace(session, login(session, as_user), prediction_id=prediction, sample=sample,
                         property_code=prop, model=model)
-    text = render(doc, fmt)
+        text = render(doc, fmt.value)
+        if out_file is not None:
+            out_file.write(text)
     if out is None:
         typer.echo(text, nl=False)
-        return
-    try:
-        out.write_text(text, encoding="utf-8")
-    except OSError as exc:
-        fail(f"cannot write {out}: {exc}")
-    typer.echo(f"trace written to {out}")
+    else:
+        typer.echo(f"trace written to {out}")
 
 
 def register(app: typer.Typer) -> None:

@@ -9,7 +9,10 @@ import typer
 
 from ..services import models as svc
 from ..services import predictions as pred_svc
-from .common import AsOpt, DbOpt, FormatOpt, emit, handle_errors, login, table, transaction
+from ..chemometrics.crossval import SELECTION_RULES
+from ..chemometrics.folds import FOLD_METHODS
+from .common import (AsOpt, DbOpt, FormatOpt, Output, choice, emit, handle_errors, login, table,
+                     transaction)
 
 model_app = typer.Typer(help="Model versions and their lifecycle.", no_args_is_help=True)
 
@@ -20,11 +23,11 @@ def model_train(calset: Annotated[str, typer.Option("--calset")],
                 recipe: Annotated[Optional[Path], typer.Option("--recipe", help="Recipe JSON file.")] = None,
                 max_components: Annotated[int, typer.Option("--max-components")] = 20,
                 cv: Annotated[int, typer.Option("--cv", help="Number of folds.")] = 10,
-                cv_method: Annotated[str, typer.Option("--cv-method", help="kfold, venetian, loso or random")] = "kfold",
-                selection: Annotated[str, typer.Option("--selection", help="haaland-thomas or one-se")] = "haaland-thomas",
+                cv_method: Annotated[choice(FOLD_METHODS), typer.Option("--cv-method")] = "kfold",
+                selection: Annotated[choice(SELECTION_RULES), typer.Option("--selection")] = "haaland-thomas",
                 components: Annotated[Optional[int], typer.Option("--components", help="Override the chosen size.")] = None,
                 parent: Annotated[Optional[str], typer.Option("--parent")] = None,
-                db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+                db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Train a draft model version on a frozen calibration set."""
     steps = svc.read_recipe(recipe)
     with transaction(db) as session:
@@ -48,8 +51,8 @@ def model_train(calset: Annotated[str, typer.Option("--calset")],
 @handle_errors
 def model_validate(version: str,
                    calset: Annotated[Optional[str], typer.Option("--calset", help="Independent set.")] = None,
-                   kind: Annotated[str, typer.Option("--kind", help="initial, local or general")] = "initial",
-                   db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+                   kind: Annotated[choice(svc.VALIDATION_KINDS), typer.Option("--kind")] = "initial",
+                   db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Predict a validation set and record statistics and the verdict."""
     with transaction(db) as session:
         rec = svc.validate_model(session, login(session, as_user), version, calset_name=calset, kind=kind)
@@ -62,7 +65,7 @@ def model_validate(version: str,
 @handle_errors
 def model_list(prop: Annotated[Optional[str], typer.Option("--property")] = None,
                state: Annotated[Optional[str], typer.Option("--state")] = None,
-               db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+               db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """List model versions."""
     with transaction(db) as session:
         rows = svc.list_models(session, login(session, as_user), property_code=prop, state=state)
@@ -72,7 +75,7 @@ def model_list(prop: Annotated[Optional[str], typer.Option("--property")] = None
 
 @model_app.command("show")
 @handle_errors
-def model_show(version: str, db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+def model_show(version: str, db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Everything about one model version: recipe, CV curve, validations, history, deployments."""
     with transaction(db) as session:
         doc = svc.model_detail(session, login(session, as_user), version)
@@ -101,7 +104,7 @@ def predict(model: Annotated[str, typer.Option("--model")],
             spectrum: Annotated[Optional[list[int]], typer.Option("--spectrum", help="Spectrum id; repeat.")] = None,
             file: Annotated[Optional[list[Path]], typer.Option("--file", help="Spectrum file; imported first.")] = None,
             instrument: Annotated[Optional[str], typer.Option("--instrument")] = None,
-            db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+            db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Predict spectra; print value, flags and diagnostics; store the predictions."""
     with transaction(db) as session:
         batch = pred_svc.predict(session, login(session, as_user), model, spectrum_ids=spectrum,

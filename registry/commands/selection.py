@@ -14,7 +14,9 @@ from ..services import selection as svc
 from ..services import selection_runs as runs
 from ..services.models import read_recipe
 from ..services.timeparse import parse_time
-from .common import AsOpt, DbOpt, FormatOpt, emit, handle_errors, login, table, transaction
+from ..selection.picking import METHODS
+from .common import (AsOpt, DbOpt, FormatOpt, Output, choice, emit, handle_errors, login,
+                     staged_output, table, transaction)
 
 selection_app = typer.Typer(help="Stored selection runs (send lists).", no_args_is_help=True)
 
@@ -73,10 +75,10 @@ def _benefit_lines(b: dict) -> list[str]:
 def select_command(
         prop: Annotated[list[str], typer.Option("--property", help="Property to test (repeat for several).")],
         grade: Annotated[str, typer.Option("--grade")],
-        method: Annotated[str, typer.Option("--method", help="kennard-stone, d-optimal or duplex.")],
+        method: Annotated[choice(METHODS), typer.Option("--method")],
         n: Annotated[Optional[int], typer.Option("--n", help="Pick exactly N samples.")] = None,
         budget: Annotated[Optional[float], typer.Option("--budget", help="Pick as many as AMOUNT buys.")] = None,
-        pool: Annotated[str, typer.Option("--pool", help="unreferenced or outside-coverage.")] = "unreferenced",
+        pool: Annotated[choice(svc.POOLS), typer.Option("--pool")] = "unreferenced",
         since: Annotated[Optional[str], typer.Option("--since", help="Spectra acquired from DATE (UTC).")] = None,
         until: Annotated[Optional[str], typer.Option("--until", help="Spectra acquired before DATE (UTC).")] = None,
         site: Annotated[Optional[str], typer.Option("--site")] = None,
@@ -84,11 +86,15 @@ def select_command(
         components: Annotated[Optional[str], typer.Option(
             "--components", help="PCA components: a number, or 'model' for the model's count.")] = None,
         explained_variance: Annotated[float, typer.Option("--explained-variance")] = 0.99,
-        metric: Annotated[str, typer.Option("--metric", help="mahalanobis or euclidean.")] = "mahalanobis",
+        metric: Annotated[choice(svc.METRICS), typer.Option("--metric")] = "mahalanobis",
         out: Annotated[Optional[Path], typer.Option("--out", help="Write the send list as CSV.")] = None,
         dry_run: Annotated[bool, typer.Option("--dry-run", help="Show the send list, store nothing.")] = False,
-        db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
-    """Choose untested samples to send for reference testing, within a count or a budget."""
+        db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
+    """Choose untested samples to send for reference testing, within a count or a budget.
+
+    With ``--out`` the send list is written during the action and put in place only
+    once the run is stored; a send list that cannot be written stores no run.
+    """
     n_components = None
     if components is not None:
         if components == "model":
@@ -98,21 +104,21 @@ def select_command(
         else:
             raise InputError(f"--components must be a number or 'model', got {components!r}",
                              field="--components")
-    steps = read_recipe(recipe) if recipe else None
-    bars = _Bars(enabled=fmt != "json")
+    request = svc.check_request(
+        property_codes=prop, grade=grade, method=method, n=n, budget=budget, pool=pool,
+        since=_date(since, "--since"), until=_date(until, "--until"), site=site,
+        recipe=read_recipe(recipe) if recipe else None, explained_variance=explained_variance,
+        n_components=n_components, metric=metric)
+    bars = _Bars(enabled=fmt is not Output.json)
     try:
-        with transaction(db) as session:
-            result = svc.run_selection(
-                session, login(session, as_user), property_codes=prop, grade=grade, method=method,
-                n=n, budget=budget, pool=pool, since=_date(since, "--since"),
-                until=_date(until, "--until"), site=site, recipe=steps,
-                explained_variance=explained_variance, n_components=n_components, metric=metric,
-                progress=bars, store=not dry_run)
+        with staged_output(out) as send_list, transaction(db) as session:
+            result = svc.run_request(session, login(session, as_user), request, progress=bars,
+                                     store=not dry_run)
             doc = result.summary()
+            if send_list is not None:
+                send_list.write(runs.send_list_csv(result.rows))
     finally:
         bars.close()
-    if out is not None:
-        runs.write_send_list(out, result.rows)
 
     def text() -> str:
         head = (f"selection run {doc['run_id']}" if doc["run_id"] else "preview (not stored)")
@@ -134,7 +140,7 @@ def select_command(
 
 @selection_app.command("list")
 @handle_errors
-def selection_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+def selection_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """List stored selection runs."""
     with transaction(db) as session:
         rows = runs.list_runs(session, login(session, as_user))
@@ -145,7 +151,7 @@ def selection_list(db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "ta
 @selection_app.command("show")
 @handle_errors
 def selection_show(run: str, db: DbOpt = None, as_user: AsOpt = None,
-                   fmt: FormatOpt = "table") -> None:
+                   fmt: FormatOpt = Output.text) -> None:
     """Show a stored run: parameters, send list, and the results that came back."""
     with transaction(db) as session:
         doc = runs.run_detail(session, login(session, as_user), run)
@@ -166,7 +172,7 @@ def selection_show(run: str, db: DbOpt = None, as_user: AsOpt = None,
 @selection_app.command("close")
 @handle_errors
 def selection_close(run: str, reason: Annotated[str, typer.Option("--reason")],
-                    db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = "table") -> None:
+                    db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Close an open run whose remaining samples will not be tested."""
     with transaction(db) as session:
         closed = runs.close_run(session, login(session, as_user), run, reason)

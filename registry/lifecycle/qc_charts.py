@@ -48,6 +48,7 @@ from enum import StrEnum
 import numpy as np
 
 from registry.errors import InputError
+from registry.plain_json import plain_json
 
 #: d₂ for ranges of 2 (tabulated; exactly 2/√π = 1.12838).
 D2 = 1.128
@@ -343,10 +344,7 @@ class QCReport:
     def plot_data(self) -> dict:
         """JSON-friendly series for plotting (NaN becomes None)."""
         ind, ew = self.individuals, self.ewma
-
-        def clean(a):
-            return [None if not math.isfinite(v) else float(v) for v in a]
-
+        clean = plain_json
         return {
             "index": list(range(ind.values.size)),
             "value": clean(ind.values),

@@ -15,7 +15,6 @@ and artifact blobs are read only for the one predicted spectrum and the one mode
 from __future__ import annotations
 
 import json
-import math
 from datetime import datetime
 from pathlib import Path
 from typing import Any, Iterable
@@ -30,6 +29,8 @@ from ..storage.models import (AuditEvent, CalibrationMember, CalibrationSet, Dep
                               QCResult, ReferenceMethod, ReferenceResult, RevalidationTrigger,
                               Sample, SelectionPick, SelectionRun, Signature, Site, SpectralAxis,
                               Spectrum, User, ValidationRecord)
+from ..plain_json import plain_json
+from ..storage.bulk import in_blocks
 from ..storage.types import as_utc, utcnow
 from .content_hashes import (artifact_hash, calibration_set_hash, reference_result_hash,
                              signature_hash, spectrum_hash, validation_record_hash)
@@ -39,7 +40,6 @@ SCHEMA_VERSION = 1
 SCHEMA_PATH = Path(__file__).with_name("trace_schema.json")
 CAUTION = ("Model results do not replace the specification test method: a predicted value is "
            "an estimate, valid only inside the space the model was calibrated and validated on.")
-_CHUNK = 900  # bound parameters per IN list, below SQLite's historical limit of 999
 _QC_RECENT = 10
 
 
@@ -55,15 +55,7 @@ def _t(value: datetime | None) -> str | None:
 
 def _clean(obj: Any) -> Any:
     # Strict JSON has no NaN/Infinity: a non-finite diagnostic becomes null.
-    if isinstance(obj, float):
-        return obj if math.isfinite(obj) else None
-    if isinstance(obj, dict):
-        return {str(k): _clean(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_clean(v) for v in obj]
-    if isinstance(obj, datetime):
-        return _t(obj)
-    return obj
+    return plain_json(obj, datetime_text=_t)
 
 
 def _merge_ok(integrity: dict, key: str, oks: list[bool]) -> None:
@@ -74,9 +66,7 @@ def _merge_ok(integrity: dict, key: str, oks: list[bool]) -> None:
 
 
 def _chunks(ids: Iterable[int]) -> Iterable[list[int]]:
-    ids = sorted(set(ids))
-    for i in range(0, len(ids), _CHUNK):
-        yield ids[i:i + _CHUNK]
+    return in_blocks(sorted(set(ids)))
 
 
 class _Lookups:

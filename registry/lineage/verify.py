@@ -38,6 +38,7 @@ from ..spectra.axes import axis_sha256
 from ..storage.models import (AuditEvent, CalibrationMember, CalibrationSet, ModelVersion,
                               Prediction, ReferenceResult, Sample, Signature, SpectralAxis,
                               Spectrum, ValidationRecord)
+from ..storage.bulk import in_blocks
 from ..storage.types import as_utc
 from .audit_chain import GENESIS, link_hash
 from .canonical import utc_text
@@ -362,9 +363,9 @@ def _name_samples(session: Session, report: VerifyReport, spectrum_sample: dict[
         return
     names: dict[int, str] = {}
     ids = sorted(wanted)
-    for start in range(0, len(ids), 900):
+    for part in in_blocks(ids):
         for sid, ext in session.execute(select(Sample.id, Sample.external_id)
-                                        .where(Sample.id.in_(ids[start:start + 900]))):
+                                        .where(Sample.id.in_(part))):
             names[sid] = ext
     for p in report.content_problems:
         sample_id = (spectrum_sample.get(p.entity_id) if p.entity_type == "spectrum"

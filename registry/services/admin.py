@@ -186,11 +186,15 @@ def get_property(session: Session, code: str) -> Property:
     return prop
 
 
+#: Instrument events that make the models in service on it due for revalidation.
+INSTRUMENT_EVENT_KINDS = ("service", "repair", "requalification", "relocation")
+
+
 def record_instrument_event(session: Session, actor: Actor, serial: str, kind: str,
                             note: str = "") -> InstrumentEvent:
     """Log a service/repair/requalification; it makes models on that instrument due."""
     authorize(actor, Action.INSTRUMENT_EVENT)
-    if kind not in ("service", "repair", "requalification", "relocation"):
+    if kind not in INSTRUMENT_EVENT_KINDS:
         raise InputError(f"unknown instrument event {kind!r}", field="KIND")
     inst = get_instrument(session, serial)
     ev = InstrumentEvent(instrument_id=inst.id, kind=kind, note=note, user_id=actor.id)

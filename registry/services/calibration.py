@@ -18,6 +18,7 @@ from ..lifecycle.permissions import Action
 from ..lineage.content_hashes import calibration_set_hash
 from ..storage.models import (CalibrationMember, CalibrationSet, Grade, Property, Sample,
                               Spectrum)
+from ..storage.bulk import in_blocks
 from ..storage.spectra_store import load_matrix
 from .admin import get_grade, get_property
 from .context import Actor, audit, authorize
@@ -56,8 +57,7 @@ def read_sample_list(path: str | Path) -> list[str]:
 
 def _spectra_by_sample(session: Session, sample_ids: list[int]) -> dict[int, list[Spectrum]]:
     out: dict[int, list[Spectrum]] = {}
-    for start in range(0, len(sample_ids), 900):
-        part = sample_ids[start:start + 900]
+    for part in in_blocks(sample_ids):
         for sp in session.exec(select(Spectrum).where(Spectrum.sample_id.in_(part))
                                .order_by(Spectrum.id)).all():
             out.setdefault(sp.sample_id, []).append(sp)

@@ -23,7 +23,7 @@ from ..spectra.axes import WAVENUMBER
 from ..spectra.formats import detect_format, iter_csv_spectra, read_jcamp
 from ..storage.models import Grade, Instrument, Sample, Site
 from ..spectra.record import content_sha256_rows
-from ..storage.bulk import insert_rows, select_in
+from ..storage.bulk import in_blocks, insert_rows, select_in
 from ..storage.spectra_store import (SPECTRUM_COLUMNS, existing_hashes, get_or_create_axis,
                                      insert_spectra)
 from ..storage.types import utcnow
@@ -98,7 +98,7 @@ def read_batches(path: Path, fmt: str = "auto", *, chunk_rows: int = 1000,
                                                       file_label=label)]
         yield from _group_records(label, recs)
     else:
-        raise InputError(f"unknown format {fmt!r}; use auto, jcamp or csv", field="--format")
+        raise InputError(f"unknown format {fmt!r}; use auto, jcamp or csv", field="--input-format")
 
 
 #: Shares of a large CSV file parsed by this process (the first) and by a child process.
@@ -225,6 +225,10 @@ class _Context:
         return {k: self.samples[k].id for k in wanted}
 
 
+#: What an import does with a spectrum already stored: refuse the import, or skip it.
+DUPLICATE_POLICIES = ("error", "skip")
+
+
 def import_spectra(session: Session, actor: Actor, paths: list[str | Path], *,
                    instrument: str | None = None, fmt: str = "auto", on_duplicate: str = "error",
                    sample_id_field: str = "TITLE", chunk_rows: int = 1000,
@@ -241,7 +245,7 @@ def import_spectra(session: Session, actor: Actor, paths: list[str | Path], *,
         Called with (spectra handled so far, current file).
     """
     authorize(actor, Action.IMPORT_SPECTRA)
-    if on_duplicate not in ("error", "skip"):
+    if on_duplicate not in DUPLICATE_POLICIES:
         raise InputError("--on-duplicate must be error or skip", field="--on-duplicate")
     default_inst = None
     if instrument:
@@ -405,7 +409,7 @@ def export_spectra(session: Session, actor: Actor, sample_ids: list[str], *, fmt
 
     authorize(actor, Action.EXPORT_DATA)
     if fmt not in ("jcamp", "csv"):
-        raise InputError(f"unknown export format {fmt!r}; use jcamp or csv", field="--format")
+        raise InputError(f"unknown export format {fmt!r}; use jcamp or csv", field="--file-format")
     samples = []
     for ext in sample_ids:
         rows = session.exec(select(Sample).where(Sample.external_id == ext)).all()
@@ -434,7 +438,7 @@ def export_spectra(session: Session, actor: Actor, sample_ids: list[str], *, fmt
         axes = {r.x.tobytes() for r in records}
         if len(axes) > 1:
             raise InputError("the spectra are on different axes; export them as JCAMP-DX or "
-                             "export one axis at a time", field="--format")
+                             "export one axis at a time", field="--file-format")
         if out.is_dir():
             out = out / "spectra.csv"
         write_csv_spectra(records, out, metadata_fields=["instrument", "acquired_at", "operator", "grade"])
@@ -463,8 +467,7 @@ def spectra_of_samples(session: Session, actor: Actor, sample_ids: list[str]) ->
 
     authorize(actor, Action.VIEW)
     out: list[int] = []
-    for start in range(0, len(sample_ids), 900):
-        part = sample_ids[start:start + 900]
+    for part in in_blocks(sample_ids):
         out += session.exec(select(Spectrum.id).join(Sample, Sample.id == Spectrum.sample_id)
                             .where(Sample.external_id.in_(part))).all()
     return sorted(out)

@@ -45,6 +45,7 @@ from ..lineage.content_hashes import (artifact_hash, calibration_set_hash, signa
 from ..storage.models import (CalibrationMember, CalibrationSet, Deployment, Grade, Instrument,
                               ModelVersion, Sample, Signature, SpectralAxis, Spectrum, User,
                               ValidationRecord)
+from ..storage.bulk import in_blocks
 from ..storage.types import utcnow
 from .admin import get_instrument
 from .auth import verify_signer
@@ -249,8 +250,7 @@ def _calibration_instruments(session: Session, mv: ModelVersion) -> list[Instrum
     spectrum_ids = sorted({sid for m in _calset_members(session, cs) if m.role == "cal"
                            for sid in m.spectrum_ids})
     inst_ids: set[int] = set()
-    for start in range(0, len(spectrum_ids), 900):
-        part = spectrum_ids[start:start + 900]
+    for part in in_blocks(spectrum_ids):
         inst_ids.update(session.exec(select(Spectrum.instrument_id).where(
             Spectrum.id.in_(part)).distinct()).all())
     return [session.get(Instrument, i) for i in sorted(inst_ids)]

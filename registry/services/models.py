@@ -15,9 +15,9 @@ from ..chemometrics import AcceptanceCriteria, TrainedModel, train_model, valida
 from ..errors import InputError, NotFoundError
 from ..lifecycle.permissions import Action
 from ..lineage.content_hashes import artifact_hash, validation_record_hash
-from ..spectra.axes import resample
+from ..spectra.axes import on_axis
 from ..storage.models import (CalibrationSet, Grade, ModelStateChange, ModelVersion, Property,
-                              ReferenceMethod, SpectralAxis, ValidationRecord)
+                              ReferenceMethod, ValidationRecord)
 from ..storage.spectra_store import axis_values
 from .calibration import calibration_data, get_calset, members_of
 from .context import Actor, audit, authorize
@@ -34,6 +34,9 @@ DEFAULT_RECIPE: list[dict[str, Any]] = [
 # 95 % limits would flag about one in six routine spectra by chance (domain notes §4 allow
 # 95 % or 99 %).
 DIAGNOSTICS_CONFIDENCE = 0.99
+#: Validation kinds: the first validation of a version, local (one site or instrument) and
+#: general (independent set covering the scope).
+VALIDATION_KINDS = ("initial", "local", "general")
 
 
 def get_model(session: Session, label: str) -> ModelVersion:
@@ -43,6 +46,24 @@ def get_model(session: Session, label: str) -> ModelVersion:
     if mv is None:
         raise NotFoundError(f"unknown model version {label!r}")
     return mv
+
+
+#: The current model of a property on a grade: the newest version in the first of these groups
+#: of states that has one (an active version; failing that the newest approved or validated).
+CURRENT_MODEL_PREFERENCE: tuple[tuple[str, ...], ...] = (("active",), ("approved", "validated"))
+#: Every state a current model can be in.
+CURRENT_MODEL_STATES: tuple[str, ...] = tuple(s for group in CURRENT_MODEL_PREFERENCE for s in group)
+
+
+def current_model(session: Session, prop: Property, grade: Grade) -> ModelVersion | None:
+    """The current model of ``prop`` on ``grade`` (see :data:`CURRENT_MODEL_PREFERENCE`), or None."""
+    for states in CURRENT_MODEL_PREFERENCE:
+        mv = session.exec(select(ModelVersion).where(
+            ModelVersion.property_id == prop.id, ModelVersion.grade_id == grade.id,
+            ModelVersion.state.in_(states)).order_by(ModelVersion.id.desc())).first()
+        if mv is not None:
+            return mv
+    return None
 
 
 def load_trained(mv: ModelVersion) -> TrainedModel:
@@ -161,7 +182,7 @@ def validate_model(session: Session, actor: Actor, label: str, *, calset_name: s
     on an approved or active model it renews the revalidation date.
     """
     authorize(actor, Action.MODEL_VALIDATE)
-    if kind not in ("initial", "local", "general"):
+    if kind not in VALIDATION_KINDS:
         raise InputError("validation kind must be initial, local or general", field="--kind")
     mv = get_model(session, label)
     from ..lifecycle.states import LifecycleAction, check_transition
@@ -178,7 +199,7 @@ def validate_model(session: Session, actor: Actor, label: str, *, calset_name: s
                          "--calset with an independent set", field="--calset")
     X, y_spec_ref, groups, axis_row, members = calibration_data(session, cs, role)
     trained = load_trained(mv)
-    X = _on_model_axis(session, X, axis_row, trained)
+    X = on_axis(X, axis_values(axis_row), trained.axis)
     _, _, order, y_pred = predict_samples(trained, X, groups)
     ref = {m.sample_id: m.reference_value for m in members}
     y_ref = np.array([ref[g] for g in order])
@@ -224,15 +245,6 @@ def _with_components(stats, n_components):
     from dataclasses import replace
 
     return replace(stats, n_components=n_components)
-
-
-def _on_model_axis(session: Session, X: np.ndarray, axis_row: SpectralAxis,
-                   trained: TrainedModel) -> np.ndarray:
-    """Spectra on the model axis: as they are, or resampled (error if not covered)."""
-    x = axis_values(axis_row)
-    if x.shape == trained.axis.shape and np.array_equal(x, trained.axis):
-        return X
-    return resample(X, x, trained.axis, kind="linear")
 
 
 def list_models(session: Session, actor: Actor, *, property_code: str | None = None,

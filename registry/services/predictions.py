@@ -19,12 +19,15 @@ from ..lifecycle.permissions import Action
 from ..lifecycle.revalidation import coverage_drift
 from ..storage.models import (Deployment, Instrument, ModelVersion, Prediction, RevalidationTrigger,
                               Sample, Spectrum)
-from ..storage.spectra_store import axis_values, load_matrix
+from ..spectra.record import content_sha256_rows
+from ..storage.spectra_store import existing_hashes, load_on_axis
 from ..storage.types import utcnow
 from .context import Actor, audit, authorize
 from .due import model_due_status, open_triggers, policy_for
 from .models import get_model, load_trained
 
+#: Checks that say a spectrum lies outside the calibration space; the y-range check is about
+#: the predicted value, not the spectrum, so it is not one of them.
 SPACE_FLAGS = ("leverage", "hotelling_t2", "q_residual", "nearest_neighbour")
 
 
@@ -77,24 +80,14 @@ def predict(session: Session, actor: Actor, label: str, *, spectrum_ids: list[in
         raise NotFoundError(f"unknown spectrum id(s): {', '.join(map(str, missing[:10]))}")
     trained = load_trained(mv)
     batch = PredictionBatch(model=mv.label)
-    by_axis: dict[int, list[Spectrum]] = {}
-    for sp in spectra:
-        by_axis.setdefault(sp.axis_id, []).append(sp)
+    y, diag = trained.predict(load_on_axis(session, [s.id for s in spectra], trained.axis))
     rows: list[tuple[Spectrum, float, dict, list[str]]] = []
     standing: dict[int, list[str]] = {}
-    for axis_id, group in by_axis.items():
-        X, axis_row = load_matrix(session, [s.id for s in group])
-        x = axis_values(axis_row)
-        if not (x.shape == trained.axis.shape and np.array_equal(x, trained.axis)):
-            from ..spectra.axes import resample
-
-            X = resample(X, x, trained.axis, kind="linear")
-        y, diag = trained.predict(X)
-        for k, (sp, rec) in enumerate(zip(group, diag.records())):
-            if sp.instrument_id not in standing:  # once per instrument, not per spectrum
-                standing[sp.instrument_id] = standing_flags(session, mv, sp.instrument_id)
-            flags = list(rec["flags"]) + standing[sp.instrument_id]
-            rows.append((sp, float(y[k]), rec, flags))
+    for k, (sp, rec) in enumerate(zip(spectra, diag.records())):
+        if sp.instrument_id not in standing:  # once per instrument, not per spectrum
+            standing[sp.instrument_id] = standing_flags(session, mv, sp.instrument_id)
+        flags = list(rec["flags"]) + standing[sp.instrument_id]
+        rows.append((sp, float(y[k]), rec, flags))
     now = utcnow()
     for sp, value, rec, flags in rows:
         p = Prediction(spectrum_id=sp.id, model_version_id=mv.id, instrument_id=sp.instrument_id,
@@ -115,17 +108,11 @@ def predict(session: Session, actor: Actor, label: str, *, spectrum_ids: list[in
 def _existing_ids_for(session: Session, files, instrument) -> list[int]:
     """Ids of already-stored spectra identical to those in ``files`` (duplicates skipped on import)."""
     from .intake import expand_paths, read_batches
-    from ..storage.spectra_store import existing_hashes
-    import hashlib
 
     digests = []
     for path in expand_paths(list(files)):
         for b in read_batches(path):
-            prefix = hashlib.sha256(np.ascontiguousarray(b.axis, dtype="<f8").tobytes())
-            for row in np.ascontiguousarray(b.Y, dtype="<f4"):
-                h = prefix.copy()
-                h.update(row.tobytes())
-                digests.append(h.hexdigest())
+            digests += content_sha256_rows(b.axis, b.Y)
     found = existing_hashes(session, digests)
     return [found[d] for d in digests if d in found]
 

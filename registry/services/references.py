@@ -30,6 +30,11 @@ from .timeparse import parse_time
 REQUIRED_COLUMNS = ("sample_id", "property", "method", "value", "unit", "lab", "tested_at")
 OPTIONAL_COLUMNS = ("operator", "comment")
 MAX_REPORTED_ERRORS = 50
+#: A reference result's states: valid, suspect (held out of calibration until a reviewer
+#: decides), rejected, superseded (by a correction).
+RESULT_STATUSES = ("valid", "suspect", "rejected", "superseded")
+#: A reviewer's decisions on a suspect result.
+DECISIONS = ("accept", "reject")
 
 
 class ImportRejected(InputError):
@@ -258,7 +263,7 @@ def resolve_suspect(session: Session, actor: Actor, result_id: int, decision: st
         raise NotFoundError(f"no reference result {result_id}")
     if rr.status != "suspect":
         raise InputError(f"reference result {result_id} is {rr.status}, not suspect", field="ID")
-    if decision not in ("accept", "reject"):
+    if decision not in DECISIONS:
         raise InputError("decision must be accept or reject", field="--decision")
     if not reason.strip():
         raise InputError("a reason is required", field="--reason")
@@ -335,7 +340,7 @@ def list_references(session: Session, actor: Actor, *, status: str | None = None
                     limit: int = 500) -> list[dict]:
     """Reference results, newest first (e.g. the suspect ones a reviewer must resolve)."""
     authorize(actor, Action.VIEW)
-    if status is not None and status not in ("valid", "suspect", "rejected", "superseded"):
+    if status is not None and status not in RESULT_STATUSES:
         raise InputError(f"unknown status {status!r}; use valid, suspect, rejected or superseded",
                          field="--status")
     q = (select(ReferenceResult, Sample, ReferenceMethod, Property)

@@ -16,19 +16,16 @@ from sqlmodel import Session, select
 
 from ..errors import InputError, NotFoundError
 from ..lifecycle.permissions import Action
-from ..spectra.axes import resample
 from ..storage.models import (CalibrationMember, CalibrationSet, Grade, Instrument, ModelVersion,
                               Prediction, Property, QCResult, ReferenceMethod, Sample, Site,
                               Spectrum, User)
-from ..storage.spectra_store import axis_values, load_matrix
+from ..storage.spectra_store import load_on_axis
 from ..storage.types import as_utc
 from .admin import get_grade, get_property
 from .context import Actor, authorize
-from .models import get_model, load_trained
+from .models import current_model, get_model, load_trained
+from .predictions import SPACE_FLAGS
 
-#: Checks that say a spectrum lies outside the calibration space (domain notes §4); the
-#: y-range check is about the predicted value, not the spectrum, so it is not one of them.
-SPACE_FLAGS = ("leverage", "hotelling_t2", "q_residual", "nearest_neighbour")
 #: Largest number of recent spectra a coverage map loads (newest first), to keep the page fast.
 MAX_RECENT = 5000
 
@@ -109,28 +106,10 @@ def _model_for(session: Session, prop: Property, grade: Grade, label: str | None
             raise InputError(f"model {mv.label} is not a {prop.code} model for grade {grade.code}",
                              field="model")
         return mv
-    from .selection import current_model
-
     mv = current_model(session, prop, grade)
     if mv is not None:
         return mv
     raise NotFoundError(f"no active, approved or validated {prop.code} model for grade {grade.code}")
-
-
-def _on_axis(session: Session, ids: list[int], target: np.ndarray) -> np.ndarray:
-    """Spectra ``ids`` (any axes) as rows on the ``target`` axis, in the order given."""
-    axis_of = dict(session.exec(select(Spectrum.id, Spectrum.axis_id).where(Spectrum.id.in_(ids))).all())
-    out = np.empty((len(ids), target.size))
-    by_axis: dict[int, list[int]] = {}
-    for k, sid in enumerate(ids):
-        by_axis.setdefault(axis_of[sid], []).append(k)
-    for rows in by_axis.values():
-        X, axis_row = load_matrix(session, [ids[k] for k in rows])
-        x = axis_values(axis_row)
-        if not (x.shape == target.shape and np.array_equal(x, target)):
-            X = resample(X, x, target, kind="linear")
-        out[rows] = X
-    return out
 
 
 def _week_start(t: datetime) -> datetime:
@@ -149,7 +128,7 @@ def coverage_map(session: Session, actor: Actor, property_code: str, grade_code:
     spectrum of the grade (anchored on the data, as the selection benefit
     figures are, so the map does not empty when no spectra arrived lately) are
     projected into it and judged by the model's prediction-time checks
-    (leverage, Hotelling T², Q residual, nearest neighbour; domain notes §4).
+    (leverage, Hotelling T², Q residual, nearest neighbour; ASTM E1655 practice, from memory).
 
     Returns
     -------
@@ -176,7 +155,7 @@ def coverage_map(session: Session, actor: Actor, property_code: str, grade_code:
     cal_samples = dict(session.exec(select(Sample.id, Sample.external_id).where(
         Sample.id.in_({m.sample_id for m in members}))).all())
     cal_labels = [cal_samples[m.sample_id] for m in members for _ in m.spectrum_ids]
-    X_cal_raw = _on_axis(session, cal_ids, trained.axis)
+    X_cal_raw = load_on_axis(session, cal_ids, trained.axis)
     X_cal = trained.preprocessor.transform(X_cal_raw)
     if X_cal.shape[0] < 3:
         raise InputError(f"model {mv.label} has {X_cal.shape[0]} calibration spectra; a map needs 3",
@@ -195,7 +174,7 @@ def coverage_map(session: Session, actor: Actor, property_code: str, grade_code:
     recent.reverse()  # oldest first, for time plots
     if recent:
         ids = [r[0] for r in recent]
-        X_new = _on_axis(session, ids, trained.axis)
+        X_new = load_on_axis(session, ids, trained.axis)
         _, diag = trained.predict(X_new)
         flags = diag.flag_lists()
         scores_new = pca.transform(trained.preprocessor.transform(X_new))

@@ -225,6 +225,20 @@ def resample(spectra, source_axis, target_axis, kind: str = "linear") -> np.ndar
     return np.asarray(spline(target), dtype=out_dtype)
 
 
+def on_axis(spectra, source_axis, target_axis) -> np.ndarray:
+    """Spectra measured on ``source_axis`` as values on ``target_axis``.
+
+    Returned as they are when the two axes are identical (no interpolation
+    rounding), else resampled piecewise-linearly by :func:`resample`, which
+    refuses a target reaching outside the measured range.
+    """
+    source = np.asarray(source_axis)
+    target = np.asarray(target_axis)
+    if source.shape == target.shape and np.array_equal(source, target):
+        return np.asarray(spectra)
+    return resample(spectra, source, target, kind="linear")
+
+
 def transmittance_to_absorbance(T, percent: bool | None = None, *, file: str | None = None,
                                 line: int | None = None, field: str | None = "y") -> np.ndarray:
     """Convert transmittance to absorbance, A = −log10(T).

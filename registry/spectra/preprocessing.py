@@ -53,7 +53,8 @@ import numpy as np
 from chemotools.baseline import LinearCorrection, PolynomialCorrection
 from chemotools.derivative import SavitzkyGolay
 from chemotools.scatter import MultiplicativeScatterCorrection, StandardNormalVariate
-from sklearn.base import BaseEstimator, TransformerMixin
+from sklearn.base import BaseEstimator, TransformerMixin, clone
+from sklearn.utils.validation import check_is_fitted, validate_data
 
 from registry.errors import InputError
 
@@ -316,110 +317,147 @@ class Recipe:
 
 
 # ---------------------------------------------------------------- step objects
-class _Region:
-    def __init__(self, columns: np.ndarray):
+def _width_checked(estimator, X, *, reset: bool) -> np.ndarray:
+    """``X`` as a finite 2-D float64 array (scikit-learn's own checks and messages);
+    ``fit`` (``reset``) records its width in ``n_features_in_``, ``transform`` requires it."""
+    return validate_data(estimator, X, reset=reset, dtype=np.float64)
+
+
+def _fixed_vector(value, width: int, name: str) -> np.ndarray:
+    arr = np.array(value, dtype=np.float64)
+    if arr.shape != (width,):
+        raise InputError(f"{name} has shape {arr.shape}; the spectra have {width} points",
+                         field=name)
+    return arr
+
+
+class RegionSelect(TransformerMixin, BaseEstimator):
+    """Keep the columns ``columns`` (indices, as :meth:`Recipe.plan` resolves a region step).
+
+    Parameters
+    ----------
+    columns : array-like of int, optional
+        Columns kept, in order; None keeps every column.
+
+    Attributes
+    ----------
+    columns_ : ndarray of int64
+    n_features_in_ : int
+    """
+
+    def __init__(self, columns=None):
         self.columns = columns
 
-    def fit(self, X):
+    def fit(self, X, y=None):
+        X = _width_checked(self, X, reset=True)
+        columns = (np.arange(X.shape[1]) if self.columns is None
+                   else np.asarray(self.columns, dtype=np.int64))
+        if columns.ndim != 1 or (columns.size and (columns.min() < 0 or columns.max() >= X.shape[1])):
+            raise InputError(f"region columns must be indices below {X.shape[1]}", field="columns")
+        self.columns_ = columns
         return self
 
     def transform(self, X):
-        return X[:, self.columns]
+        check_is_fitted(self, "columns_")
+        return _width_checked(self, X, reset=False)[:, self.columns_]
 
 
-class _Segmentwise:
-    """Applies one chemotools transformer per contiguous segment."""
+class Segmentwise(TransformerMixin, BaseEstimator):
+    """Apply a clone of ``transformer`` to each contiguous segment of columns on its own, so a
+    filter window never reaches across a region that was cut out.
 
-    def __init__(self, segments: list[slice], factory):
+    Parameters
+    ----------
+    transformer : scikit-learn transformer
+        E.g. a chemotools Savitzky–Golay filter or baseline correction.
+    segments : list of slice, optional
+        Column ranges; None is one segment of every column.
+
+    Attributes
+    ----------
+    parts_ : list
+        One fitted clone of ``transformer`` per segment.
+    segments_ : list of slice
+    n_features_in_ : int
+    """
+
+    def __init__(self, transformer=None, segments=None):
+        self.transformer = transformer
         self.segments = segments
-        self.factory = factory
-        self.parts_: list = []
 
-    def fit(self, X):
-        self.parts_ = [self.factory().fit(X[:, sl]) for sl in self.segments]
+    def fit(self, X, y=None):
+        X = _width_checked(self, X, reset=True)
+        self.segments_ = (list(self.segments) if self.segments is not None
+                          else [slice(0, X.shape[1])])
+        self.parts_ = [clone(self.transformer).fit(X[:, sl]) for sl in self.segments_]
         return self
 
     def transform(self, X):
-        if len(self.segments) == 1:
+        check_is_fitted(self, "parts_")
+        X = _width_checked(self, X, reset=False)
+        if len(self.segments_) == 1 and self.segments_[0] == slice(0, X.shape[1]):
             return self.parts_[0].transform(X)
         out = np.empty_like(X, dtype=np.float64)
-        for sl, part in zip(self.segments, self.parts_):
+        for sl, part in zip(self.segments_, self.parts_):
             out[:, sl] = part.transform(X[:, sl])
         return out
 
 
-class _Whole:
-    def __init__(self, factory):
-        self.factory = factory
-        self.part_ = None
+class MeanCenter(TransformerMixin, BaseEstimator):
+    """Subtract the column mean of the spectra fitted on (or a given ``mean``).
 
-    def fit(self, X):
-        self.part_ = self.factory().fit(X)
+    Parameters
+    ----------
+    mean : array-like of shape (n_features,), optional
+        A mean restored from a stored model; None learns it in ``fit``.
+
+    Attributes
+    ----------
+    mean_ : ndarray of shape (n_features,)
+    n_features_in_ : int
+    """
+
+    def __init__(self, mean=None):
+        self.mean = mean
+
+    def fit(self, X, y=None):
+        X = _width_checked(self, X, reset=True)
+        self.mean_ = (X.mean(axis=0) if self.mean is None
+                      else _fixed_vector(self.mean, X.shape[1], "mean"))
         return self
 
     def transform(self, X):
-        return self.part_.transform(X)
+        check_is_fitted(self, "mean_")
+        return _width_checked(self, X, reset=False) - self.mean_
 
 
-class _Msc:
-    def __init__(self):
-        self.part_ = None
-
-    def fit(self, X):
-        self.part_ = MultiplicativeScatterCorrection(method="mean").fit(X)
-        return self
-
-    def restore(self, reference: np.ndarray):
-        # fitting with an explicit reference runs the same arithmetic on the
-        # same numbers as the original fit, so the output is bit-identical
-        self.part_ = MultiplicativeScatterCorrection(reference=reference).fit(reference[None, :])
-        return self
-
-    def state(self) -> dict[str, np.ndarray]:
-        return {"reference": np.array(self.part_.reference_, dtype=np.float64)}
-
-    def transform(self, X):
-        return self.part_.transform(X)
+#: State arrays of the data-dependent steps: (step name, state key, fitted attribute).
+_STATE = {"msc": ("reference", "reference_"), "mean_center": ("mean", "mean_")}
 
 
-class _MeanCenter:
-    def __init__(self):
-        self.mean_ = None
-
-    def fit(self, X):
-        self.mean_ = X.mean(axis=0)
-        return self
-
-    def restore(self, mean: np.ndarray):
-        self.mean_ = mean
-        return self
-
-    def state(self) -> dict[str, np.ndarray]:
-        return {"mean": np.array(self.mean_, dtype=np.float64)}
-
-    def transform(self, X):
-        return X - self.mean_
-
-
-def _make_step(step: dict[str, Any], plan: dict[str, Any]):
+def _make_step(step: dict[str, Any], plan: dict[str, Any], state: np.ndarray | None):
+    """The transformer of one recipe step; ``state`` fixes what a data-dependent step
+    would otherwise learn (the MSC reference, the mean)."""
     name = step["step"]
     if name == "region":
-        return _Region(plan["columns"])
+        return RegionSelect(plan["columns"])
     if name == "snv":
-        return _Whole(StandardNormalVariate)
+        return StandardNormalVariate()
     if name == "msc":
-        return _Msc()
+        # An explicit reference runs the same arithmetic on the same numbers as the
+        # original fit on the mean spectrum, so a restored step is bit-identical.
+        return (MultiplicativeScatterCorrection(method="mean") if state is None
+                else MultiplicativeScatterCorrection(reference=state))
     if name == "mean_center":
-        return _MeanCenter()
+        return MeanCenter(mean=state)
     if name == "savgol":
-        wl, po, d, mode = step["window_length"], step["polyorder"], step["deriv"], step["mode"]
-        return _Segmentwise(plan["segments"], lambda: SavitzkyGolay(
-            window_length=wl, polyorder=po, deriv=d, mode=mode))
+        return Segmentwise(SavitzkyGolay(window_length=step["window_length"],
+                                         polyorder=step["polyorder"], deriv=step["deriv"],
+                                         mode=step["mode"]), plan["segments"])
     if name == "baseline":
-        if step["kind"] == "linear":
-            return _Segmentwise(plan["segments"], LinearCorrection)
-        degree = step["degree"]
-        return _Segmentwise(plan["segments"], lambda: PolynomialCorrection(order=degree))
+        correction = (LinearCorrection() if step["kind"] == "linear"
+                      else PolynomialCorrection(order=step["degree"]))
+        return Segmentwise(correction, plan["segments"])
     raise AssertionError(name)  # unreachable: names were validated
 
 
@@ -432,26 +470,24 @@ class SpectralPipeline(TransformerMixin, BaseEstimator):
         Recipe steps (validated again in ``fit``).
     axis : ndarray of shape (n_points,)
         Ascending float64 axis of the input spectra, cm⁻¹.
+    state : mapping of str to ndarray, optional
+        Fitted state of the data-dependent steps as :meth:`state_arrays` returns it;
+        those steps then take it instead of learning from ``X`` (how a stored model
+        is restored, see :meth:`from_state`).
 
     Attributes
     ----------
     steps_ : list
-        Fitted step objects.
+        Fitted transformers, one per recipe step.
     axis_out_ : ndarray
         Axis of the output columns (after region steps).
     n_features_in_ : int
     """
 
-    def __init__(self, recipe: list[dict[str, Any]], axis: np.ndarray):
+    def __init__(self, recipe: list[dict[str, Any]], axis: np.ndarray, state=None):
         self.recipe = recipe
         self.axis = axis
-
-    def _prepare(self):
-        recipe = Recipe.from_json(self.recipe)
-        plans = recipe.plan(self.axis)
-        steps = [_make_step(s, p) for s, p in zip(recipe.to_json(), plans)]
-        axis_out = plans[-1]["axis_out"] if plans else _check_axis(self.axis)
-        return recipe, steps, axis_out
+        self.state = state
 
     def _check_X(self, X) -> np.ndarray:
         X = np.asarray(X, dtype=np.float64)
@@ -465,40 +501,49 @@ class SpectralPipeline(TransformerMixin, BaseEstimator):
             raise InputError(f"spectrum {bad} contains non-finite values", field="X")
         return X
 
-    def fit(self, X, y=None) -> "SpectralPipeline":
+    def _fit(self, X) -> np.ndarray:
+        """Fit every step on the output of the one before; returns the transformed ``X``."""
         X = self._check_X(X)
-        _, steps, axis_out = self._prepare()
-        for step in steps:
+        recipe = Recipe.from_json(self.recipe)
+        plans = recipe.plan(self.axis)
+        widths = [len(self.axis)] + [len(p["axis_out"]) for p in plans]
+        steps = []
+        for i, (spec, plan) in enumerate(zip(recipe.to_json(), plans)):
+            kept = None
+            if self.state is not None and spec["step"] in _STATE:
+                key = f"step{i}.{_STATE[spec['step']][0]}"
+                kept = _state_vector(self.state, key, widths[i])
+            step = _make_step(spec, plan, kept)
             X = step.fit(X).transform(X)
+            steps.append(step)
         self.steps_ = steps
-        self.axis_out_ = axis_out
+        self.axis_out_ = plans[-1]["axis_out"] if plans else _check_axis(self.axis)
         self.n_features_in_ = len(self.axis)
+        return X
+
+    def fit(self, X, y=None) -> "SpectralPipeline":
+        self._fit(X)
         return self
 
+    def fit_transform(self, X, y=None, **fit_params) -> np.ndarray:
+        return self._fit(X)
+
     def transform(self, X) -> np.ndarray:
+        check_is_fitted(self, "steps_")
         X = self._check_X(X)
         for step in self.steps_:
             X = step.transform(X)
         return X
 
-    def fit_transform(self, X, y=None, **fit_params) -> np.ndarray:
-        X = self._check_X(X)
-        _, steps, axis_out = self._prepare()
-        for step in steps:
-            X = step.fit(X).transform(X)
-        self.steps_ = steps
-        self.axis_out_ = axis_out
-        self.n_features_in_ = len(self.axis)
-        return X
-
     # ----------------------------------------------------------- fitted state
     def state_arrays(self) -> dict[str, np.ndarray]:
         """Fitted state as plain float64 arrays, keyed ``"step{i}.{name}"``."""
+        check_is_fitted(self, "steps_")
         out = {}
-        for i, step in enumerate(self.steps_):
-            if hasattr(step, "state"):
-                for key, arr in step.state().items():
-                    out[f"step{i}.{key}"] = arr
+        for i, (spec, step) in enumerate(zip(Recipe.from_json(self.recipe).to_json(), self.steps_)):
+            if spec["step"] in _STATE:
+                key, attribute = _STATE[spec["step"]]
+                out[f"step{i}.{key}"] = np.array(getattr(step, attribute), dtype=np.float64)
         return out
 
     def state_json(self) -> dict[str, Any]:
@@ -509,29 +554,17 @@ class SpectralPipeline(TransformerMixin, BaseEstimator):
     def from_state(cls, recipe: Any, axis: Any, arrays: Mapping[str, np.ndarray]) -> "SpectralPipeline":
         """Rebuild a fitted pipeline from :meth:`state_arrays` output.
 
+        Every data-dependent step takes its stored array, so fitting on any spectrum of
+        the right width (here a ramp, which no step rejects) gives the stored pipeline.
+
         Raises
         ------
         registry.errors.InputError
             If an array the recipe needs is missing or has the wrong length.
         """
-        recipe = Recipe.from_json(recipe)
-        pipe = recipe.build(axis)
-        _, steps, axis_out = pipe._prepare()
-        plans = recipe.plan(pipe.axis)
-        widths = [len(pipe.axis)] + [len(p["axis_out"]) for p in plans]
-        for i, (step, spec) in enumerate(zip(steps, recipe.to_json())):
-            if spec["step"] == "msc":
-                step.restore(_state_vector(arrays, f"step{i}.reference", widths[i]))
-            elif spec["step"] == "mean_center":
-                step.restore(_state_vector(arrays, f"step{i}.mean", widths[i]))
-            else:
-                # stateless steps learn nothing from data; fitting on a
-                # placeholder of the right width only records that width
-                step.fit(np.ones((1, widths[i])))
-        pipe.steps_ = steps
-        pipe.axis_out_ = axis_out
-        pipe.n_features_in_ = len(pipe.axis)
-        return pipe
+        pipe = Recipe.from_json(recipe).build(axis)
+        pipe.set_params(state={k: np.asarray(v) for k, v in arrays.items()})
+        return pipe.fit(np.linspace(1.0, 2.0, len(pipe.axis))[None, :])
 
 
 def _state_vector(arrays: Mapping[str, np.ndarray], key: str, width: int) -> np.ndarray:

@@ -11,13 +11,20 @@ The SQL is the same on SQLite and PostgreSQL but for the parameter marker.
 
 from __future__ import annotations
 
-from typing import Iterable, Sequence
+from typing import Iterable, Iterator, Sequence
 
 from sqlalchemy import Table
 from sqlmodel import Session
 
 #: Keys per ``IN (...)`` list: below SQLite's bound-parameter limit with room for others.
 IN_BLOCK = 900
+
+
+def in_blocks(values: Sequence) -> Iterator[list]:
+    """``values`` in consecutive blocks of at most :data:`IN_BLOCK` (one ``IN (...)`` list each)."""
+    values = list(values)
+    for start in range(0, len(values), IN_BLOCK):
+        yield values[start:start + IN_BLOCK]
 
 
 def _marker(session: Session) -> str:
@@ -87,8 +94,7 @@ def select_in(session: Session, table: Table, columns: Sequence[str], key: str,
     extra = "".join(f" AND {name} = {mark}" for name in where)
     conn = session.connection()
     out: list[tuple] = []
-    for start in range(0, len(values), IN_BLOCK):
-        part = values[start:start + IN_BLOCK]
+    for part in in_blocks(values):
         sql = (f"SELECT {', '.join(columns)} FROM {table.name} "
                f"WHERE {key} IN ({', '.join([mark] * len(part))}){extra}")
         out += [tuple(row) for row in conn.exec_driver_sql(sql, (*part, *where.values()))]

@@ -14,9 +14,9 @@ from sqlalchemy import select
 from sqlmodel import Session
 
 from ..errors import InputError, IntegrityError
-from ..spectra.axes import axis_sha256
+from ..spectra.axes import axis_sha256, on_axis
 from ..spectra.record import content_sha256
-from .bulk import insert_rows, select_in
+from .bulk import in_blocks, insert_rows, select_in
 from .models import SpectralAxis, Spectrum
 
 
@@ -104,6 +104,28 @@ def load_matrix(session: Session, spectrum_ids: Sequence[int], *, verify: bool =
     return out, axis_row
 
 
+def load_on_axis(session: Session, spectrum_ids: Sequence[int], target_axis: np.ndarray
+                 ) -> np.ndarray:
+    """Spectra (on any stored axes) as one (n, p) float64 array on ``target_axis``, rows in
+    the order of ``spectrum_ids``; each stored axis is read once and placed by
+    :func:`registry.spectra.axes.on_axis`."""
+    ids = [int(i) for i in spectrum_ids]
+    target = np.asarray(target_axis, dtype=np.float64)
+    out = np.empty((len(ids), target.size))
+    rows_of_axis: dict[int, list[int]] = {}
+    axis_of = dict(row for part in in_blocks(sorted(set(ids))) for row in session.execute(
+        select(Spectrum.id, Spectrum.axis_id).where(Spectrum.id.in_(part))).all())
+    missing = [sid for sid in ids if sid not in axis_of]
+    if missing:
+        raise InputError(f"{len(missing)} requested spectra do not exist (first: {missing[0]})")
+    for k, sid in enumerate(ids):
+        rows_of_axis.setdefault(axis_of[sid], []).append(k)
+    for rows in rows_of_axis.values():
+        X, axis_row = load_matrix(session, [ids[k] for k in rows])
+        out[rows] = on_axis(X, axis_values(axis_row), target)
+    return out
+
+
 def _raw_rows(session: Session, ids: list[int], *, with_hash: bool):
     """(id, axis_id, data, sha256) rows straight from the DB-API cursor.
 
@@ -134,7 +156,7 @@ def _raw_rows(session: Session, ids: list[int], *, with_hash: bool):
 
 def _id_blocks(ids: list[int]) -> list[list[int]]:
     """Blocks of ids for queries: contiguous runs as one block (queried by range),
-    the rest in blocks of 900 (below SQLite's bound-parameter limit)."""
+    the rest in blocks of :data:`~registry.storage.bulk.IN_BLOCK`."""
     ordered = sorted(ids)
     blocks: list[list[int]] = []
     run = [ordered[0]]
@@ -152,15 +174,10 @@ def _id_blocks(ids: list[int]) -> list[list[int]]:
             out.append(b)
         else:
             loose += b
-    out += [loose[i:i + 900] for i in range(0, len(loose), 900)]
+    out += list(in_blocks(loose))
     return out
 
 
 def iter_spectrum_rows(session: Session, ids: Iterable[int]):
-    for start_ids in _chunks(list(ids), 900):
-        yield from session.execute(select(Spectrum).where(Spectrum.id.in_(start_ids))).scalars()
-
-
-def _chunks(seq: list, n: int):
-    for i in range(0, len(seq), n):
-        yield seq[i:i + n]
+    for part in in_blocks(ids):
+        yield from session.execute(select(Spectrum).where(Spectrum.id.in_(part))).scalars()

@@ -1,13 +1,19 @@
 """Preprocessing recipes: validation, reference formulas, state round trips."""
 
 import json
+import warnings
 
 import numpy as np
 import pytest
+from chemotools.derivative import SavitzkyGolay
 from scipy.signal import savgol_filter
+from sklearn.base import clone
+from sklearn.exceptions import NotFittedError
+from sklearn.utils.estimator_checks import check_estimator
 
 from registry.errors import InputError
-from registry.spectra.preprocessing import Recipe, SpectralPipeline
+from registry.spectra.preprocessing import (MeanCenter, Recipe, RegionSelect, Segmentwise,
+                                            SpectralPipeline)
 
 
 def test_savgol_equals_scipy(fermentation):
@@ -175,3 +181,57 @@ def test_wrong_spectrum_width_is_reported(fermentation):
     pipe = Recipe.from_json([{"step": "snv"}]).build(axis)
     with pytest.raises(InputError, match="points but the axis"):
         pipe.fit(X[:, :-1])
+
+
+# ---------------------------------------------------------------- scikit-learn conventions
+@pytest.mark.parametrize("step", [
+    MeanCenter(), RegionSelect(), Segmentwise(SavitzkyGolay(window_length=3, polyorder=1)),
+], ids=["mean_center", "region", "segmentwise_savgol"])
+def test_steps_pass_scikit_learns_estimator_checks(step):
+    # source: scikit-learn's own conformance suite, sklearn.utils.estimator_checks
+    # (clone, get/set_params, fit(X, y=None) returning self, n_features_in_, unfitted
+    # transform raising NotFittedError, input validation, idempotent fit, ...)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        check_estimator(step)
+
+
+def test_pipeline_follows_scikit_learn_conventions(fermentation):
+    # source: scikit-learn developer guide, "Rolling your own estimator" (constructor
+    # stores parameters as given; fitted attributes, ending in "_", are set in fit)
+    X, _, axis = fermentation
+    pipe = Recipe.from_json(FULL_RECIPE).build(axis)
+    assert not [k for k in vars(pipe) if k.endswith("_")]
+    with pytest.raises(NotFittedError):
+        pipe.transform(X)
+    params = pipe.get_params()
+    twin = clone(pipe)
+    assert twin is not pipe and twin.recipe == pipe.recipe
+    np.testing.assert_array_equal(twin.axis, pipe.axis)
+    assert pipe.set_params(**params) is pipe and pipe.get_params()["recipe"] == params["recipe"]
+    fitted = pipe.fit(X, None)
+    assert fitted is pipe and pipe.n_features_in_ == X.shape[1]
+    np.testing.assert_array_equal(clone(pipe).fit_transform(X), pipe.transform(X))
+    with pytest.raises(NotFittedError):
+        clone(pipe).transform(X)  # a clone carries parameters only, never the fit
+
+
+def test_segmentwise_nested_parameters_reach_the_filter(fermentation):
+    # source: scipy.signal.savgol_filter as the reference, after set_params on the
+    # nested chemotools filter (scikit-learn's "transformer__param" convention)
+    X, _, _ = fermentation
+    step = Segmentwise(SavitzkyGolay(window_length=5, polyorder=2, mode="interp"),
+                       [slice(0, 60), slice(60, 140)])
+    step.set_params(transformer__window_length=9, transformer__deriv=1)
+    out = step.fit_transform(X[:, :140])
+    expected = np.hstack([savgol_filter(X[:, :60], 9, 2, deriv=1, axis=1),
+                          savgol_filter(X[:, 60:140], 9, 2, deriv=1, axis=1)])
+    np.testing.assert_allclose(out, expected, rtol=0, atol=1e-12)
+
+
+def test_input_error_is_a_value_error():
+    # source: Python convention (and scikit-learn's estimator checks) that a bad
+    # argument value raises ValueError; the registry's location fields stay
+    with pytest.raises(ValueError) as info:
+        Recipe.from_json([{"step": "savgol", "window_length": 4, "polyorder": 2}])
+    assert isinstance(info.value, InputError) and info.value.field == "steps[0].window_length"

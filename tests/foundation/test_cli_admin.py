@@ -8,6 +8,8 @@ import pytest
 from typer.testing import CliRunner
 
 from registry.cli import app
+from registry.commands.records import RECORD_FIELDS
+from registry.storage.models import User
 from registry.storage.engine import dispose_engines
 
 runner = CliRunner()
@@ -55,6 +57,7 @@ def test_init_then_first_admin_then_users(db):
     assert res.exit_code == 0, res.output
     created = json.loads(res.stdout)
     assert created["id"] == 1 and created["roles"] == ["admin"] and "password_hash" not in created
+    assert list(created) == list(RECORD_FIELDS[User])  # exactly the allow-list, in its order
     res = run(["user", "add", "ana", "--role", "analyst", "--password-stdin", "--format", "json"], db,
               user="root", stdin="analyst-pw-1\n")
     assert res.exit_code == 0, res.output
@@ -89,6 +92,29 @@ def test_bad_input_is_one_clear_line_and_writes_nothing(db, args, stdin, needle)
     assert needle in res.stderr
     assert len(res.stderr.strip().splitlines()) == 1
     assert counts(db) == before
+
+
+@pytest.mark.parametrize("args", [
+    ["site", "add", "X", "--format", "bogus"],
+    ["site", "add", "X", "--format", "table"],  # the old name of text output is gone everywhere
+    ["grade", "add", "G1", "--family", "gasoline", "--format", "pdf"],
+    ["instrument", "event", "SN-1", "--kind", "polish"],
+])
+def test_a_bad_option_is_refused_before_anything_is_stored(db, args):
+    """Every option is checked before the transaction: a wrong one stores nothing, so the
+    corrected command then succeeds instead of reporting that the site already exists."""
+    assert run(["init"], db).exit_code == 0
+    assert run(["user", "add", "root", "--role", "admin", "--password-stdin"], db, stdin=PW + "\n").exit_code == 0
+    assert run(["site", "add", "Main"], db, user="root").exit_code == 0
+    assert run(["instrument", "add", "SN-1", "--site", "Main"], db, user="root").exit_code == 0
+    before = counts(db)
+    res = run(args, db, user="root")
+    assert res.exit_code == 2, res.output
+    assert counts(db) == before
+    if args[:2] == ["site", "add"]:
+        res = run(["site", "add", "X", "--format", "json"], db, user="root")
+        assert res.exit_code == 0, res.output
+        assert json.loads(res.stdout)["name"] == "X"
 
 
 def test_wrong_password_and_missing_role_are_refused(db):

@@ -75,3 +75,42 @@ def test_cli_errors_are_one_clear_line(sel_registry):
     assert res.exit_code == 2 and "--components" in res.output
     res = cli(["selection", "show", "99"], url)
     assert res.exit_code == 2 and "no selection run 99" in res.output
+
+
+def test_an_unwritable_send_list_stores_no_run(sel_registry, tmp_path, monkeypatch):
+    """The send list is part of the action: a path that cannot be written is refused before
+    anything runs, and a write that fails during the action rolls the run back."""
+    engine, actors, info, url = sel_registry
+    args = ["select", "--property", "RON", "--grade", "PREM95", "--method", "kennard-stone",
+            "--n", "3", "--out"]
+    res = cli([*args, str(tmp_path / "no-such-folder" / "send.csv")], url)
+    assert res.exit_code == 2 and "does not exist" in res.output
+    res = cli([*args, str(tmp_path)], url)  # a folder, not a file
+    assert res.exit_code == 2 and "folder" in res.output
+
+    import registry.commands.common as common
+
+    def disk_full(*a, **kw):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(common.tempfile, "mkstemp", disk_full)
+    out = tmp_path / "send.csv"
+    res = cli([*args, str(out)], url)
+    assert res.exit_code == 2 and "No space left" in res.output
+    assert not out.exists()
+    listed = cli(["selection", "list", "--format", "json"], url)
+    assert json.loads(listed.stdout) == []
+
+    monkeypatch.undo()
+    res = cli([*args, str(out)], url)
+    assert res.exit_code == 0, res.output
+    assert out.exists() and [p.name for p in tmp_path.iterdir() if p.name.endswith(".part")] == []
+    assert len(json.loads(cli(["selection", "list", "--format", "json"], url).stdout)) == 1
+
+
+def test_choices_are_refused_by_the_parser(sel_registry):
+    engine, actors, info, url = sel_registry
+    for extra in (["--method", "random", "--n", "3"], ["--method", "kennard-stone", "--n", "3",
+                                                      "--metric", "manhattan"]):
+        res = cli(["select", "--property", "RON", "--grade", "PREM95", *extra], url)
+        assert res.exit_code == 2 and "is not one of" in res.output

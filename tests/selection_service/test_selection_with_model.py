@@ -91,3 +91,24 @@ def test_outside_coverage_pool_is_what_the_model_flags(with_model):
         if row["sample_id"] in info["new_component"]:
             assert "Q residual" in row["reason"] and "> limit" in row["reason"]
     assert ids_of(res)[0] in info["new_component"]
+
+
+def test_current_model_is_one_rule_for_selection_and_the_coverage_view(with_model):
+    """Active first, else the newest approved or validated version, else none; the coverage
+    map and the selection run name the same version."""
+    from registry.services import admin, views
+
+    engine, actors, _, mv = with_model
+    with session_scope(engine) as s:
+        prop, grade = admin.get_property(s, "RON"), admin.get_grade(s, "PREM95")
+        assert models.current_model(s, prop, grade) is None  # a draft is not current
+    for state in ("validated", "approved", "active"):
+        _set_state(engine, mv, state)
+        with session_scope(engine) as s:
+            assert models.current_model(s, prop, grade).label == mv.label
+            cov = views.coverage_map(s, actors["auditor"], "RON", "PREM95")
+        assert cov["model"] == mv.label == _run(engine, actors["lab_manager"], n=2).model_label
+    _set_state(engine, mv, "retired")
+    with session_scope(engine) as s:
+        assert models.current_model(s, prop, grade) is None
+    assert set(models.CURRENT_MODEL_STATES) == {"active", "approved", "validated"}

@@ -28,7 +28,7 @@ if not props or not grades:
     st.stop()
 # Offer first the property and grade of a model that has a calibration space to show.
 usable = call(model_svc.list_models)
-usable = [r for r in (usable or []) if r["state"] in ("active", "approved", "validated") and r["grade"]]
+usable = [r for r in (usable or []) if r["state"] in model_svc.CURRENT_MODEL_STATES and r["grade"]]
 if usable:
     props.sort(key=lambda p: p != usable[0]["property"])
     grades.sort(key=lambda g: g != usable[0]["grade"])

@@ -30,7 +30,7 @@ grades = [g["code"] for g in cat["grades"]]
 # Offer first the model that most needs new samples: the first one due for revalidation
 # (overdue first), else the newest model in service.
 usable = call(model_svc.list_models)
-usable = [r for r in (usable or []) if r["state"] in ("active", "approved", "validated") and r["grade"]]
+usable = [r for r in (usable or []) if r["state"] in model_svc.CURRENT_MODEL_STATES and r["grade"]]
 due = call(revalidation.due_list)
 focus = None
 if due and due is not FAILED:

@@ -11,9 +11,13 @@ Entry points
 from registry.spectra.formats.csv_matrix import (CsvChunk, iter_csv_spectra,
                                                  write_csv_spectra)
 from registry.spectra.formats.detect import detect_format, read_spectra_file
-from registry.spectra.formats.jcamp import normalise_label, read_jcamp, write_jcamp
+from registry.spectra.formats.jcamp import JCAMP_FORMS, normalise_label, read_jcamp, write_jcamp
+
+#: The spectrum file formats the registry reads and writes.
+FILE_FORMATS = ("jcamp", "csv")
 
 __all__ = [
-    "CsvChunk", "detect_format", "iter_csv_spectra", "normalise_label", "read_jcamp",
+    "CsvChunk", "FILE_FORMATS", "JCAMP_FORMS", "detect_format", "iter_csv_spectra",
+    "normalise_label", "read_jcamp",
     "read_spectra_file", "write_csv_spectra", "write_jcamp",
 ]

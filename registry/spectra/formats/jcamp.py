@@ -656,6 +656,10 @@ def _longdate(value) -> str:
     return text
 
 
+#: Data forms :func:`write_jcamp` writes: free-format X++(Y..Y), compressed DIFDUP, (XY..XY) pairs.
+JCAMP_FORMS = ("AFFN", "DIFDUP", "XYPOINTS")
+
+
 def write_jcamp(record: SpectrumRecord, form: str = "AFFN", yfactor: float | None = None) -> str:
     """Write one spectrum as JCAMP-DX 4.24 text.
 
@@ -686,7 +690,7 @@ def write_jcamp(record: SpectrumRecord, form: str = "AFFN", yfactor: float | Non
         or metadata that cannot be written on one line.
     """
     form = form.upper()
-    if form not in ("AFFN", "DIFDUP", "XYPOINTS"):
+    if form not in JCAMP_FORMS:
         raise InputError(f"unknown JCAMP-DX form {form!r}; use AFFN, DIFDUP or XYPOINTS",
                          field="form")
     x = np.asarray(record.x, dtype=np.float64)
