@@ -149,7 +149,7 @@ def train_model(X_raw, y, axis, recipe, max_components: int = 20, folds: int = 1
                 groups=None, n_components: int | None = None,
                 selection: str = "haaland-thomas", *, method: str = "kfold",
                 random_state=None, alpha: float = 0.75, confidence: float = 0.95,
-                residual_test: str = "jackson-mudholkar",
+                residual_test: str = "q-limit", q_limit_method: str = "box",
                 metadata: dict[str, Any] | None = None) -> TrainedModel:
     """Recipe fit → cross-validation → final fit → diagnostics → :class:`TrainedModel`.
 
@@ -167,7 +167,7 @@ def train_model(X_raw, y, axis, recipe, max_components: int = 20, folds: int = 1
     max_components, folds, groups, n_components, selection, method,
     random_state, alpha
         As :func:`registry.chemometrics.cross_validate_pls`.
-    confidence, residual_test
+    confidence, residual_test, q_limit_method
         As :class:`registry.chemometrics.diagnostics.ApplicabilityDomain`.
     metadata : dict, optional
         JSON-able extras (property name, units, ...).
@@ -199,7 +199,8 @@ def train_model(X_raw, y, axis, recipe, max_components: int = 20, folds: int = 1
     A = cv.selected_components
     X_pre = pipeline.fit_transform(X_raw)
     pls = PLSRegressor(n_components=A).fit(X_pre, y)
-    domain = ApplicabilityDomain(confidence=confidence, residual_test=residual_test).fit(X_pre, pls, y)
+    domain = ApplicabilityDomain(confidence=confidence, residual_test=residual_test,
+                                  q_limit_method=q_limit_method).fit(X_pre, pls, y)
     meta = {
         **(metadata or {}),
         "n_components": A,
