@@ -26,7 +26,7 @@ from registry.chemometrics.crossval import CVResult, cross_validate_pls
 from registry.chemometrics.diagnostics import ApplicabilityDomain, DiagnosticsResult
 from registry.chemometrics.folds import assign_folds
 from registry.chemometrics.pls import PLSRegressor, check_xy
-from registry.errors import FormatError, InputError
+from registry.errors import FormatError, InputError, IntegrityError
 from registry.spectra.preprocessing import Recipe, SpectralPipeline
 
 FORMAT = "specledger-pls-model"
@@ -211,3 +211,13 @@ def train_model(X_raw, y, axis, recipe, max_components: int = 20, folds: int = 1
         "rmsecv": float(cv.rmsecv[A - 1]),
     }
     return TrainedModel(axis, pipeline, pls, domain, meta, cv)
+
+
+def q_limit_of(blob: bytes, expected_sha256: str) -> dict[str, Any] | None:
+    """How a stored model's Q-residual limit was obtained: form, h0, g, h, θ source, note
+    (:meth:`ApplicabilityDomain.q_limit_record`); None when the artifact does not verify
+    against its hash or cannot be read."""
+    try:
+        return TrainedModel.from_bytes(bytes(blob), expected_sha256).domain.q_limit_record()
+    except (IntegrityError, InputError):
+        return None

@@ -134,6 +134,31 @@ def new_sample_residual_scale(n_samples: int, n_components: int) -> float:
     return (n - 1) / (n - A - 1) * (1.0 + (A + 1) / n)
 
 
+_FORM_TEXT = {"box": "Box g·χ²(h)", "jackson-mudholkar": "Jackson–Mudholkar"}
+
+
+def describe_q_limit(record: dict[str, Any] | None) -> str:
+    """One line for people: the form, its parameters, where θ came from and any note,
+    from :meth:`ApplicabilityDomain.q_limit_record`."""
+    if not record:
+        return "not recorded (artifact unreadable)"
+
+    def num(v: Any) -> str:
+        return "-" if v is None else f"{v:.3g}"
+    form = record.get("form")
+    text = f"{_FORM_TEXT.get(form, form)} at {100 * record['confidence']:g} %"
+    if form == "box":
+        text += f": g = {num(record.get('g'))}, h = {num(record.get('h'))} (h0 = {num(record.get('h0'))})"
+    else:
+        text += f": h0 = {num(record.get('h0'))}"
+    text += f"; θ from {record.get('theta_source')}"
+    if record.get("residual_scale") not in (None, 1.0):
+        text += f" (×{record['residual_scale']:.4g})"
+    if record.get("note"):
+        text += f"; {record['note']}"
+    return text
+
+
 def outlier_leverage_limit(n_samples: int, n_components: int) -> float:
     """3(A+1)/n: three times the mean leverage of a mean-centred model (ASTM E1655, from memory)."""
     return 3.0 * (int(n_components) + 1) / int(n_samples)
