@@ -46,8 +46,8 @@ Four questions per sample, each answered with a value, a limit and a flag:
 
     is only valid for h0 > 0, and the power 1/h0 becomes unstable as h0
     approaches 0. Mid-IR residual spaces have a long tail of small
-    eigenvalues and h0 ≤ 0 at usual component counts, where this formula
-    puts the limit below the typical Q. It is used only when
+    eigenvalues, and h0 is often ≤ 0 at the component counts cross-validation
+    picks; the formula then puts the limit below the typical Q. It is used only when
     h0 ≥ ``JM_MIN_H0`` (our choice); otherwise Box is used and
     ``q_limit_note_`` says so. ``q_limit_form_`` records the form used.
 
@@ -156,6 +156,8 @@ def describe_q_limit(record: dict[str, Any] | None) -> str:
         text += f" (×{record['residual_scale']:.4g})"
     if record.get("note"):
         text += f"; {record['note']}"
+    if record.get("residual_test") == "f-ratio":
+        text += "; the flag uses the F-ratio test instead"
     return text
 
 
@@ -264,7 +266,8 @@ class ApplicabilityDomain:
     q_limit_h0_, q_limit_g_, q_limit_h_ : float
         h0 of Jackson–Mudholkar and Box's g and h, from the eigenvalues used.
     q_theta_source_, q_limit_note_ : str
-        Where θ came from; why the form differs from the one asked for.
+        Where θ came from; any caveat (Box used instead of Jackson–Mudholkar,
+        an artifact older than the recorded form).
     leverage_limit_, t2_limit_, q_limit_, q_f_limit_, nn_limit_ : float
     q_sum_ : float
     y_min_, y_max_ : float
