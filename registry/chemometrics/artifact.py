@@ -26,7 +26,7 @@ from registry.chemometrics.crossval import CVResult, cross_validate_pls
 from registry.chemometrics.diagnostics import ApplicabilityDomain, DiagnosticsResult
 from registry.chemometrics.folds import assign_folds
 from registry.chemometrics.pls import PLSRegressor, check_xy
-from registry.errors import FormatError, InputError
+from registry.errors import FormatError, InputError, IntegrityError
 from registry.spectra.preprocessing import Recipe, SpectralPipeline
 
 FORMAT = "specledger-pls-model"
@@ -149,7 +149,7 @@ def train_model(X_raw, y, axis, recipe, max_components: int = 20, folds: int = 1
                 groups=None, n_components: int | None = None,
                 selection: str = "haaland-thomas", *, method: str = "kfold",
                 random_state=None, alpha: float = 0.75, confidence: float = 0.95,
-                residual_test: str = "jackson-mudholkar",
+                residual_test: str = "q-limit", q_limit_method: str = "box",
                 metadata: dict[str, Any] | None = None) -> TrainedModel:
     """Recipe fit → cross-validation → final fit → diagnostics → :class:`TrainedModel`.
 
@@ -167,7 +167,7 @@ def train_model(X_raw, y, axis, recipe, max_components: int = 20, folds: int = 1
     max_components, folds, groups, n_components, selection, method,
     random_state, alpha
         As :func:`registry.chemometrics.cross_validate_pls`.
-    confidence, residual_test
+    confidence, residual_test, q_limit_method
         As :class:`registry.chemometrics.diagnostics.ApplicabilityDomain`.
     metadata : dict, optional
         JSON-able extras (property name, units, ...).
@@ -199,7 +199,8 @@ def train_model(X_raw, y, axis, recipe, max_components: int = 20, folds: int = 1
     A = cv.selected_components
     X_pre = pipeline.fit_transform(X_raw)
     pls = PLSRegressor(n_components=A).fit(X_pre, y)
-    domain = ApplicabilityDomain(confidence=confidence, residual_test=residual_test).fit(X_pre, pls, y)
+    domain = ApplicabilityDomain(confidence=confidence, residual_test=residual_test,
+                                  q_limit_method=q_limit_method).fit(X_pre, pls, y)
     meta = {
         **(metadata or {}),
         "n_components": A,
@@ -210,3 +211,13 @@ def train_model(X_raw, y, axis, recipe, max_components: int = 20, folds: int = 1
         "rmsecv": float(cv.rmsecv[A - 1]),
     }
     return TrainedModel(axis, pipeline, pls, domain, meta, cv)
+
+
+def q_limit_of(blob: bytes, expected_sha256: str) -> dict[str, Any] | None:
+    """How a stored model's Q-residual limit was obtained: form, h0, g, h, θ source, note
+    (:meth:`ApplicabilityDomain.q_limit_record`); None when the artifact does not verify
+    against its hash or cannot be read."""
+    try:
+        return TrainedModel.from_bytes(bytes(blob), expected_sha256).domain.q_limit_record()
+    except (IntegrityError, InputError):
+        return None

@@ -23,6 +23,7 @@ from sqlalchemy import or_, select
 from sqlmodel import Session
 
 from ..catalog import precision_at
+from ..chemometrics.artifact import q_limit_of
 from ..errors import InputError, NotFoundError
 from ..storage.models import (AuditEvent, CalibrationMember, CalibrationSet, Deployment, Grade,
                               Instrument, ModelStateChange, ModelVersion, Prediction, Property,
@@ -248,6 +249,7 @@ def _model_doc(session: Session, lk: _Lookups, mv: ModelVersion, cs: Calibration
                "n_spectra": (mv.cv or {}).get("n_spectra"),
                "n_samples": (mv.cv or {}).get("n_samples")},
         "artifact_sha256": mv.artifact_sha256, "artifact_hash_ok": artifact_ok,
+        "q_limit": q_limit_of(mv.artifact, mv.artifact_sha256) if artifact_ok else None,
         "last_validated_at": _t(mv.last_validated_at),
         "state_history": [{"from": h.from_state, "to": h.to_state, "by": lk.user(h.user_id),
                            "at": _t(h.occurred_at), "reason": h.reason,

@@ -11,6 +11,8 @@ import json
 from html import escape
 from typing import Any, Iterable
 
+from ..chemometrics.diagnostics import describe_q_limit
+
 Node = tuple[str, list]  # (label, children)
 
 
@@ -83,6 +85,7 @@ def _model_node(m: dict) -> Node:
         (f"{m['family']}, {m['n_components']} components; RMSECV {_num(m['cv'].get('rmsecv_at_selected'))} "
          f"({m['cv'].get('method')}, {m['cv'].get('n_folds')} folds, {m['cv'].get('selection_rule')})", []),
         (f"artifact {m['artifact_sha256']} [{_ok(m['artifact_hash_ok'])}]", []),
+        (f"Q-residual limit: {describe_q_limit(m.get('q_limit'))}", []),
         ("state history", [(f"{_when(h['at'])} {h['from']} → {h['to']} by {h['by']}"
                             + (f": {h['reason']}" if h['reason'] else "")
                             + (f" [{_signature_text(h['signature'])}]" if h["signature"] else ""), [])
@@ -303,6 +306,7 @@ def _model_html(m: dict) -> str:
         ("cross-validation", _e(f"{m['cv'].get('method')}, {m['cv'].get('n_folds')} folds, "
                                 f"{m['cv'].get('selection_rule')}")),
         ("artifact sha256", f"<code>{_e(m['artifact_sha256'])}</code> {_flag(m['artifact_hash_ok'])}"),
+        ("Q-residual limit", _e(describe_q_limit(m.get("q_limit")))),
         ("last validated", _e(_when(m["last_validated_at"])))])]
     parts.append("<details open><summary>State history and signatures</summary>" + _table(
         ["when", "from", "to", "by", "reason", "signature"],

@@ -12,6 +12,7 @@ from sqlmodel import Session, select
 
 from ..catalog import precision_at
 from ..chemometrics import AcceptanceCriteria, TrainedModel, train_model, validation_statistics, verdict
+from ..chemometrics.artifact import q_limit_of
 from ..errors import InputError, NotFoundError
 from ..lifecycle.permissions import Action
 from ..lineage.content_hashes import artifact_hash, validation_record_hash
@@ -289,7 +290,7 @@ def model_detail(session: Session, actor: Actor, label: str) -> dict:
         "id": mv.id, "label": mv.label, "property": prop.code, "unit": prop.unit,
         "state": mv.state, "author": users.get(mv.author_id), "created_at": mv.created_at,
         "family": mv.family, "components": mv.n_components, "recipe": mv.recipe, "cv": mv.cv,
-        "artifact_sha256": mv.artifact_sha256,
+        "artifact_sha256": mv.artifact_sha256, "q_limit": q_limit_of(mv.artifact, mv.artifact_sha256),
         "parent": session.get(ModelVersion, mv.parent_id).label if mv.parent_id else None,
         "calibration_set": {"name": cs.name, "sha256": cs.sha256, "n_cal": cs.n_cal, "n_val": cs.n_val},
         "last_validated_at": mv.last_validated_at,

@@ -37,6 +37,28 @@ def test_loaded_model_predicts_bit_identically(trained, fermentation_online):
     assert loaded.to_bytes() == blob
 
 
+def test_artifact_from_before_the_q_limit_form_was_recorded_still_loads(trained,
+                                                                        fermentation_online):
+    # source: artifact contract. An artifact whose diagnostics lack the Q-limit form (and
+    # name the Q test "jackson-mudholkar", as they were written then) loads, predicts and
+    # flags with its stored limit, and says the form is assumed
+    from registry.chemometrics.artifact import q_limit_of
+    arrays, doc = unpack(trained.to_bytes(), trained.sha256)
+    for key in ("q_limit_method", "q_residual_scale", "q_limit_form", "q_theta_source",
+                "q_limit_note"):
+        del doc["diagnostics"][key]
+    doc["diagnostics"]["residual_test"] = "jackson-mudholkar"
+    old_blob = pack(arrays, doc)
+    old = TrainedModel.from_bytes(old_blob, sha256_hex(old_blob))
+    _, d_now = trained.predict(fermentation_online)
+    _, d_old = old.predict(fermentation_online)
+    assert d_old.q_limit == d_now.q_limit and d_old.flag_lists() == d_now.flag_lists()
+    record = q_limit_of(old_blob, sha256_hex(old_blob))
+    assert record["form"] == "jackson-mudholkar" and "form assumed" in record["note"]
+    assert q_limit_of(trained.to_bytes(), trained.sha256)["form"] == "box"
+    assert q_limit_of(old_blob, trained.sha256) is None  # does not verify: not read
+
+
 def test_tampering_any_byte_is_detected(trained):
     # source: SHA-256 (hashlib) over the whole artifact
     blob = trained.to_bytes()

@@ -200,6 +200,11 @@ def test_text_tree_lists_the_chain(prediction_doc):
         assert f"sample {mem['sample']['external_id']} (" in text
     assert f"corrects #{info['corrected_from']}" in text
     assert "approved as reviewer" in text and "QC SIGNAL OPEN" in text
+    # the Q-residual limit's form, as the model artifact records it (Box 1954 by default)
+    assert doc["model"]["q_limit"]["form"] == "box"
+    assert "Q-residual limit: Box g·χ²(h) at 99 %" in text
+    assert "scaled for fitted degrees of freedom" in text
+    assert "Q-residual limit" in render_html(doc)
 
 
 def test_trace_reports_altered_content(lineage_sqlite):
@@ -218,6 +223,7 @@ def test_trace_reports_altered_content(lineage_sqlite):
     assert integ["reference_results_hash_ok"] is False and integ["artifact_hash_ok"] is False
     assert f"reference_result {info['corrected_to']}" in integ["altered"]
     assert f"model_version {info['model_id']}" in integ["altered"]
+    assert doc["model"]["q_limit"] is None  # an altered artifact is not read
     assert integ["calibration_set_hash_ok"] is True  # the frozen set itself is unchanged
 
 

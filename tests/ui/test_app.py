@@ -70,6 +70,9 @@ def test_models_page_lists_the_model_and_draws_its_cv_curve(ui_reg):
     np.testing.assert_allclose(array(curve["y"]), detail["cv"]["rmsecv"])
     assert array(chosen["x"]).tolist() == [detail["components"]]
     np.testing.assert_allclose(array(chosen["y"]), [detail["cv"]["rmsecv"][detail["components"] - 1]])
+    # the Q-residual limit's form, as the artifact records it (Box 1954 by default)
+    assert detail["q_limit"]["form"] == "box"
+    assert any(c.value.startswith("Q-residual limit: Box g·χ²(h)") for c in at.caption)
     # an auditor changes nothing: no lifecycle form is offered
     assert not at.form_submit_button
     assert "active" in frame(at, "signature")["to"].tolist()

@@ -6,6 +6,7 @@ import pandas as pd
 import plotly.graph_objects as go
 import streamlit as st
 
+from registry.chemometrics.diagnostics import describe_q_limit
 from registry.lifecycle.permissions import LIFECYCLE_PERMISSIONS
 from registry.lifecycle.states import LifecycleAction, allowed_actions
 from registry.services import models as model_svc
@@ -46,6 +47,7 @@ c[3].metric("Last validated", d["last_validated_at"].strftime("%Y-%m-%d") if d["
 st.caption(f"Calibration set {d['calibration_set']['name']} (SHA-256 {d['calibration_set']['sha256'][:16]}…); "
            f"artifact SHA-256 {d['artifact_sha256'][:16]}…"
            + (f"; parent {d['parent']}" if d["parent"] else ""))
+st.caption(f"Q-residual limit: {describe_q_limit(d['q_limit'])}")
 
 cv = d["cv"] or {}
 rmsecv = cv.get("rmsecv") or []
