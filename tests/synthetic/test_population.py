@@ -57,6 +57,24 @@ def test_gasoline_properties_in_market_ranges(gasoline):
     assert p["BENZENE"].between(0.1, 5.0).all()
 
 
+def test_gasoline_t50_lies_in_the_market_range(gasoline):
+    # T50 of market gasolines is about 85–105 °C (common practice; ASTM D4814 allows
+    # 77–121 °C by volatility class, 66 °C minimum for ethanol blends, from memory)
+    t = gasoline.properties["T50"].to_numpy()
+    lo, hi = np.percentile(t, [5, 95])
+    assert 85.0 <= lo and hi <= 105.0, (lo, hi)
+    assert t.min() >= 80.0 and t.max() <= 110.0
+    # the new heavy-aromatic stream shifts T50 up but keeps it inside the D4814 span
+    heavy = generate_population(400, grade="premium", seed=23, new_component_share=0.12)
+    assert heavy.properties["T50"].median() > np.median(t)
+    assert heavy.properties["T50"].between(80.0, 121.0).all()
+
+
+def test_diesel_t50_lies_in_the_middle_distillate_range(diesel):
+    # diesel T50 is typically about 250–300 °C (common practice, from memory)
+    assert diesel.properties["T50"].between(250.0, 300.0).all()
+
+
 def test_seasons_and_grades_shape_the_properties(gasoline):
     p = gasoline.properties
     summer, winter = gasoline.season == "summer", gasoline.season == "winter"
