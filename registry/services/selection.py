@@ -8,7 +8,7 @@ by the primary test methods of one or more properties. The registry
    waiting in an open selection run for one of them, and (optionally) were
    measured in a date range or at one site; with ``pool="outside-coverage"``
    only those the current model flags as outside its space (leverage,
-   Hotelling T², Q residual or nearest-neighbour check, domain notes §4);
+   Hotelling T², Q residual or nearest-neighbour check, ASTM E1655, from memory);
 2. builds the *calibration reference*: the calibration members of the
    current model's frozen set or, without a model, every sample of the grade
    with a valid reference value for one of the properties;
@@ -374,7 +374,7 @@ def run_selection(session: Session, actor: Actor, *, property_codes: list[str], 
     n_components : int or "model", optional
         A fixed component count, or ``"model"`` for the current model's own count.
     metric : {"mahalanobis", "euclidean"}
-        Distances on the scores: Mahalanobis H² = Σₐ Δtₐ²/λₐ (domain notes §3) or Euclidean.
+        Distances on the scores: Mahalanobis H² = Σₐ Δtₐ²/λₐ (ASTM E1655, from memory) or Euclidean.
     progress : callable, optional
         ``progress(stage, done, total)`` while loading spectra and picking.
     store : bool
@@ -616,7 +616,7 @@ def _duplex_nearest(S_pool, picks, use, labels) -> list[tuple[float, str]]:
 
 
 def _benefit(T_cal, T_uni, T_picks, universe, spectra, eig) -> dict[str, Any]:
-    """Coverage of recent production now and with the picks (domain notes §4, nearest neighbour)."""
+    """Coverage of recent production now and with the picks (nearest-neighbour check, common practice)."""
     newest = max(t for s in universe for *_, t in spectra[s])
     since = newest - timedelta(days=RECENT_WINDOW_DAYS)
     recent = np.array([max(t for *_, t in spectra[s]) >= since for s in universe])

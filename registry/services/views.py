@@ -26,7 +26,7 @@ from .admin import get_grade, get_property
 from .context import Actor, authorize
 from .models import get_model, load_trained
 
-#: Checks that say a spectrum lies outside the calibration space (domain notes §4); the
+#: Checks that say a spectrum lies outside the calibration space (ASTM E1655, from memory); the
 #: y-range check is about the predicted value, not the spectrum, so it is not one of them.
 SPACE_FLAGS = ("leverage", "hotelling_t2", "q_residual", "nearest_neighbour")
 #: Largest number of recent spectra a coverage map loads (newest first), to keep the page fast.
@@ -149,7 +149,7 @@ def coverage_map(session: Session, actor: Actor, property_code: str, grade_code:
     spectrum of the grade (anchored on the data, as the selection benefit
     figures are, so the map does not empty when no spectra arrived lately) are
     projected into it and judged by the model's prediction-time checks
-    (leverage, Hotelling T², Q residual, nearest neighbour; domain notes §4).
+    (leverage, Hotelling T², Q residual, nearest neighbour; ASTM E1655, from memory).
 
     Returns
     -------

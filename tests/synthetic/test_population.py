@@ -43,8 +43,8 @@ def test_population_shapes_and_columns(gasoline, diesel):
 
 
 def test_gasoline_properties_in_market_ranges(gasoline):
-    # ranges of the brief; EN 228 density 720–775 kg/m³ (from memory) is a
-    # superset of the 0.72–0.78 asked
+    # market ranges (common practice); EN 228 density 720–775 kg/m³ (from
+    # memory) lies inside the 0.72–0.78 asked
     p = gasoline.properties
     assert p["RON"].between(88, 101).all()
     assert p["MON"].between(80, 90).all()
@@ -53,7 +53,7 @@ def test_gasoline_properties_in_market_ranges(gasoline):
     # RON ≥ MON for every real gasoline (sensitivity ≥ 0; common practice)
     assert (p["RON"] > p["MON"]).all()
     # benzene ≤ 1 vol % is the EN 228 limit (from memory); the demo lets
-    # regular grades run slightly over, to span the D6277 range 0.1–5 vol % (§2)
+    # regular grades run slightly over, to span ASTM D6277's range 0.1–5 vol % (from memory)
     assert p["BENZENE"].between(0.1, 5.0).all()
 
 
@@ -91,7 +91,7 @@ def test_seasons_and_grades_shape_the_properties(gasoline):
 
 def test_diesel_properties_in_market_ranges(diesel):
     p = diesel.properties
-    # brief's ranges; EN 590 density 820–845 kg/m³ (from memory)
+    # market ranges (common practice); EN 590 density 820–845 kg/m³ (from memory)
     assert p["DENSITY"].between(0.82, 0.85).all()
     assert p["CN"].between(45, 56).all()
     b0 = diesel.grade == "B0"
