@@ -174,7 +174,8 @@ def vapour_pressure(composition: pd.DataFrame) -> np.ndarray:
     a rise of a few kPa at E5–E10, a maximum near 5–10 vol % ethanol, a slow
     fall through the mid-range, E85 at roughly 40–70 kPa, and neat ethanol at
     its own vapour pressure. c < 4 keeps the hydrocarbon term falling for every
-    v, so the curve has one maximum.
+    v; with ethanol's share saturated early, the curve then has one maximum
+    (checked in the tests for bases of 50–70 kPa).
     """
     v, names = as_volume_fractions(composition)
     v_e = _fraction_of(v, names, "ethanol")
