@@ -39,51 +39,75 @@ def _c(v: float) -> dict:
     return {"kind": "constant", "value": v}
 
 
+# The one table of primary test methods: the registry seeds it into a new database
+# and the synthetic reference generator (seed_demo.synthetic.reference) draws its
+# noise from it, so the demo and the registry cannot disagree. One method per
+# property. Every r and R names its source; "from memory" marks figures recalled
+# from the method's precision statement and not re-checked against its current text.
 # Costs are invented planning figures in USD (a knock-engine rating is of the order of
 # US$100-300, from memory); turnaround in days. Edit them to the lab's own figures.
 METHODS: list[dict[str, Any]] = [
     dict(code="ASTM D2699", property="RON", name="Research octane, knock engine",
          repeatability=_c(0.2), reproducibility=_c(0.7), cost=250, turnaround_days=2,
-         source="r, R for RON 90-100 from memory (ASTM D2699 precision statement)."),
+         source="r 0.2 and R 0.7 for RON 90-100: ASTM D2699 precision statement, from memory."),
     dict(code="ASTM D2700", property="MON", name="Motor octane, knock engine",
          repeatability=_c(0.2), reproducibility=_c(0.9), cost=250, turnaround_days=2,
-         source="r, R for MON 80-90 from memory (ASTM D2700 precision statement)."),
+         source="r 0.2 and R 0.9 for MON 80-90: ASTM D2700 precision statement, from memory."),
     dict(code="ASTM D613", property="CN", name="Cetane number, CFR engine",
-         repeatability=_c(0.85),
+         repeatability={"kind": "linear", "a": 0.42, "b": 0.01},
          reproducibility={"kind": "linear", "a": -2.2, "b": 0.125}, cost=350, turnaround_days=3,
-         source="R = 3.8 at CN 48 and 4.3 at CN 52, linear between (ASTM D613 / ISO 5165 text); "
-                "r about 0.8-0.9 from memory."),
+         source="ASTM D613 precision table (from memory): r 0.8, 0.9, 0.9, 0.9, 1.0 and "
+                "R 2.8, 3.3, 3.8, 4.3, 4.8 at CN 40, 44, 48, 52, 56. R = 0.125·CN − 2.2 "
+                "passes through every R; r = 0.42 + 0.01·CN is the least-squares line "
+                "through the r values (within 0.04)."),
     dict(code="ASTM D4052", property="DENSITY", name="Density, oscillating U-tube",
-         repeatability=_c(0.0002), reproducibility=_c(0.0010), cost=30, turnaround_days=1,
-         source="r 0.0001-0.0005 and R 0.0005-0.002 g/mL from memory; mid values taken."),
+         repeatability=_c(0.0002), reproducibility=_c(0.0005), cost=30, turnaround_days=1,
+         source="r 0.2 kg/m³ and R 0.5 kg/m³ (0.0002 and 0.0005 g/mL) for light "
+                "transparent products: ISO 12185 precision statement, from memory; the "
+                "ASTM D4052 figures for such products are of the same size (from memory)."),
     *[dict(code="ASTM D86", property=p, name="Distillation at atmospheric pressure",
            repeatability=_c(1.5), reproducibility=_c(4.0), cost=80, turnaround_days=1,
-           source="Approximate, from memory: D86 precision depends on the slope of the "
-                  "distillation curve; constant figures are a simplification.")
+           source="r 1.5 °C and R 4.0 °C: approximate, from memory. ASTM D86 precision "
+                  "depends on the slope of the distillation curve at the point; constant "
+                  "figures are a simplification.")
       for p in ("T10", "T50", "T90")],
     dict(code="ASTM D93", property="FLASH", name="Flash point, closed cup (procedure A)",
          repeatability={"kind": "proportional", "b": 0.029},
          reproducibility={"kind": "proportional", "b": 0.071}, cost=60, turnaround_days=1,
-         source="r = 0.029 X, R = 0.071 X from memory (ASTM D93 procedure A)."),
+         source="r = 0.029·X and R = 0.071·X: ASTM D93 procedure A precision statement, "
+                "from memory."),
     dict(code="ASTM D5191", property="VP", name="Vapour pressure, mini method",
-         repeatability=_c(1.0), reproducibility=_c(2.5), cost=40, turnaround_days=1,
-         source="R about 2-3 kPa from memory; r 1.0 kPa approximate, from memory."),
+         repeatability=_c(0.5), reproducibility=_c(2.75), cost=40, turnaround_days=1,
+         source="r 0.50 kPa and R 2.75 kPa for DVPE of gasolines and gasoline-oxygenate "
+                "blends: ASTM D5191 precision statement, from memory."),
     dict(code="ASTM D5769", property="AROMATICS", name="Aromatics by GC-MS",
          repeatability=_c(0.6), reproducibility=_c(2.0), cost=180, turnaround_days=3,
-         source="Approximate, from memory."),
+         source="r 0.6 and R 2.0 vol % near 20-35 vol % total aromatics: approximate, from "
+                "memory (ASTM D5769 gives level-dependent precision)."),
     dict(code="ASTM D5769", property="BENZENE", name="Benzene by GC-MS",
          repeatability=_c(0.03), reproducibility=_c(0.1), cost=180, turnaround_days=3,
-         source="Approximate, from memory."),
+         source="r 0.03 and R 0.1 vol % near 0.5-1 vol % benzene: approximate, from memory "
+                "(ASTM D5769 gives level-dependent precision)."),
     dict(code="ASTM D4815", property="ETHANOL", name="Oxygenates by GC",
          repeatability=_c(0.2), reproducibility=_c(0.6), cost=120, turnaround_days=2,
-         source="Approximate, from memory."),
+         source="r 0.2 and R 0.6 vol % near 10 vol % ethanol: approximate, from memory "
+                "(ASTM D4815 gives level-dependent precision)."),
     dict(code="EN 14078", property="FAME", name="FAME in middle distillates, IR",
          repeatability=_c(0.1), reproducibility=_c(0.3), cost=60, turnaround_days=1,
-         source="Approximate, from memory."),
+         source="r 0.1 and R 0.3 vol % near 5-7 vol % FAME: approximate, from memory."),
     dict(code="ASTM D2386", property="FREEZE", name="Freezing point of aviation fuels",
          repeatability=_c(1.5), reproducibility=_c(2.5), cost=90, turnaround_days=1,
-         source="r about 1.5 °C, R about 2.5 °C from memory."),
+         source="r 1.5 °C and R 2.5 °C: ASTM D2386 precision statement, from memory."),
 ]
+
+
+def method_of(property_code: str) -> dict[str, Any]:
+    """The catalog's primary test method for a property (one per property)."""
+    for m in METHODS:
+        if m["property"] == property_code:
+            return m
+    raise InputError(f"no test method for property {property_code!r} in the catalog; known: "
+                     f"{', '.join(m['property'] for m in METHODS)}", field="property")
 
 
 def precision_at(spec: dict[str, Any] | None, level: float) -> float | None:

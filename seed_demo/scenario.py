@@ -179,7 +179,7 @@ class _Builder:
 
     def reference_results(self, month: float, ids: list[str], props: dict[str, str],
                           lab: str = "Alder Ridge engine lab") -> None:
-        """Primary-method results with between-lab noise σ = R/2.77 (domain notes §2)."""
+        """Primary-method results with between-lab noise σ = R/2.77 (ISO 5725-6; ASTM E177)."""
         lines = ["sample_id,property,method,value,unit,lab,tested_at,operator"]
         when = self.at(month, 29)
         for code, method in props.items():

@@ -75,8 +75,9 @@ def import_references(file: Path, site: Annotated[Optional[str], typer.Option("-
     except ImportRejected as exc:
         _rejected(exc)
     emit(fmt, summary.__dict__,
-         f"imported {summary.imported} result(s); {summary.suspect} marked suspect (repeats differ "
-         f"by more than r); {summary.linked_to_selection} answer a selection run")
+         f"imported {summary.imported} result(s); {summary.suspect} marked suspect (range of repeats "
+         f"beyond the ISO 5725-6 critical range); {summary.linked_to_selection} answer a "
+         "selection run")
 
 
 @export_app.command("spectra")

@@ -19,22 +19,32 @@ Conventions
   limits centre ± L·σ·√(λ/(2 − λ)·(1 − (1 − λ)^{2t})) (exact, default) or the
   asymptotic centre ± L·σ·√(λ/(2 − λ)). λ = 0.4 by default, as ASTM D6299 is
   recalled to use (from memory, not checked against the standard's text).
-* **Run rules** (Western Electric Statistical Quality Control Handbook, 1956;
-  Nelson, J. Quality Technology 16:237, 1984), each evaluated at every point,
-  "beyond" meaning strictly beyond:
+* **Run rules** (Western Electric, *Statistical Quality Control Handbook*,
+  1956; Nelson, J. Quality Technology 16:237, 1984), "beyond" meaning
+  strictly beyond:
 
   1. one point beyond 3σ;
-  2. two of three consecutive points beyond 2σ on the same side, the current
-     point being one of them;
-  3. four of five consecutive points beyond 1σ on the same side, the current
-     point being one of them;
+  2. two of three consecutive points beyond 2σ on the same side;
+  3. four of five consecutive points beyond 1σ on the same side;
   4. ``run_length`` consecutive points on the same side of the centre line
      (default 9 as in Nelson 1984; the 1956 handbook used 8 — both common
-     practice). A point exactly on the centre line ends a run. Every point of
-     a run from the ``run_length``-th on signals, since each is still evidence
-     of the shift;
+     practice). A point exactly on the centre line ends a run;
   5. EWMA beyond its limits;
   6. moving range above its upper limit.
+
+  Every window the rules define is evaluated, from the first points of the
+  chart on; before ``window`` points exist, the window is the points so far
+  (two of the first two results beyond 2σ lie in every window of three that
+  holds them). A pattern is reported at the point that completes it: the
+  newest point of its window, itself beyond the zone (rules 2–3) or on the
+  run's side (rule 4). That is the first point at which the pattern can be
+  known, as a chart is read while results arrive (the QC service judges each
+  new point once). A window whose newest point does not count adds nothing:
+  its counted points all lie in the window that ends at the last of them. So
+  each point signals at most once per rule and overlapping windows over the
+  same points give one signal; a pattern that goes on (a third point beyond
+  2σ, a tenth point of a run) signals again at each new point, each being
+  fresh evidence of the shift.
 
 Signal indices are 0-based positions in the input.
 """
@@ -289,15 +299,22 @@ def _side(s: int) -> str:
 
 def _zone_rule(dev: np.ndarray, k: float, window: int, need: int, rule: Rule,
                sigma: float) -> list[Signal]:
-    """``need`` of the last ``window`` points beyond k·σ on one side, current point included."""
+    """``need`` of ``window`` consecutive points beyond k·σ on one side.
+
+    Reported at the newest point of each window, when that point is beyond the
+    zone itself; windows at the start of the chart are the points so far (see
+    the module notes for why this finds every pattern exactly once per point).
+    """
     out = []
-    for t in range(window - 1, dev.size):
+    for t in range(need - 1, dev.size):
+        start = max(0, t - window + 1)
         for s in (1, -1):
-            beyond = s * dev[t - window + 1:t + 1] > k * sigma
+            beyond = s * dev[start:t + 1] > k * sigma
             if beyond[-1] and beyond.sum() >= need:
-                out.append(Signal(t, rule, f"{need} of the last {window} results are more "
-                                           f"than {k:g}σ {_side(s)} the centre line "
-                                           f"(σ = {sigma:.4g})"))
+                out.append(Signal(t, rule, f"{int(beyond.sum())} of the last {beyond.size} "
+                                           f"results are more than {k:g}σ {_side(s)} the "
+                                           f"centre line (rule: {need} of {window}; "
+                                           f"σ = {sigma:.4g})"))
     return out
 
 

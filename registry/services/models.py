@@ -32,8 +32,8 @@ DEFAULT_RECIPE: list[dict[str, Any]] = [
 
 
 # Prediction-time limits (Hotelling T², Q residual) at 99 %: with four checks per spectrum,
-# 95 % limits would flag about one in six routine spectra by chance (domain notes §4 allow
-# 95 % or 99 %).
+# 95 % limits would flag about one in six routine spectra by chance (95 % and 99 % are both
+# common practice).
 DIAGNOSTICS_CONFIDENCE = 0.99
 #: Validation kinds: the first validation of a version, local (one site or instrument) and
 #: general (independent set covering the scope).

@@ -26,7 +26,7 @@ from .context import Actor, audit, authorize
 from .due import model_due_status, open_triggers, policy_for
 from .models import get_model, load_trained
 
-#: Checks that say a spectrum lies outside the calibration space; the y-range check is about
+#: Checks that say a spectrum lies outside the calibration space (ASTM E1655, from memory); the y-range check is about
 #: the predicted value, not the spectrum, so it is not one of them.
 SPACE_FLAGS = ("leverage", "hotelling_t2", "q_residual", "nearest_neighbour")
 

@@ -1,10 +1,13 @@
 """Reference-method results: import (all-or-nothing), repeat checks, corrections, review.
 
 Repeats of one sample and method are all kept; calibration uses their mean.
-Two valid results that differ by more than the method's repeatability r at
-their level are both marked suspect and the sample is held out of
-calibration until a reviewer resolves it (common practice: results differing
-by more than r are suspect).
+When the range of the n repeats exceeds the critical range f(n)·σ_r of
+ISO 5725-6 (σ_r = r/2.77 from the method's repeatability r at their level;
+f = 2.8, 3.3, 3.6, 3.9 for n = 2…5, :func:`registry.precision.critical_range`),
+every valid repeat is marked suspect and the sample is held out of
+calibration until a reviewer resolves it. For two results this is r itself
+(to the standard's rounding); for more it is wider, since the range of more
+results spreads more.
 """
 
 from __future__ import annotations
@@ -21,6 +24,7 @@ from sqlmodel import Session, select
 from ..catalog import precision_at
 from ..errors import InputError, NotFoundError
 from ..lifecycle.permissions import Action
+from ..precision import critical_range, critical_range_factor, sd_from_limit
 from ..lineage.content_hashes import reference_result_hash
 from ..storage.models import (Property, ReferenceMethod, ReferenceResult, Sample, SelectionPick,
                               SelectionRun, Site)
@@ -229,25 +233,31 @@ def _close_answered_runs(session: Session, pick_ids: set[int]) -> None:
 
 
 def _check_repeats(session: Session, sample_id: int, method_id: int) -> int:
-    """Mark valid repeats that differ by more than r as suspect; returns how many were marked."""
+    """Mark valid repeats whose range exceeds f(n)·σ_r as suspect; returns how many were marked."""
     method = session.get(ReferenceMethod, method_id)
     rows = session.exec(select(ReferenceResult).where(
         ReferenceResult.sample_id == sample_id, ReferenceResult.method_id == method_id,
         ReferenceResult.status.in_(["valid", "suspect"]))).all()
-    if len(rows) < 2:
+    n = len(rows)
+    if n < 2:
         return 0
     values = [r.value for r in rows]
-    level = sum(values) / len(values)
+    level = sum(values) / n
     r_limit = precision_at(method.repeatability, level)
     if r_limit is None:
         return 0
+    limit = critical_range(n, r_limit)
+    spread = max(values) - min(values)
     marked = 0
-    if max(values) - min(values) > r_limit:
+    if spread > limit:
         for r in rows:
             if r.status == "valid":
                 r.status = "suspect"
-                r.status_reason = (f"suspect — exceeds r: repeats range {max(values) - min(values):.4g} "
-                                   f"> r = {r_limit:.4g} at level {level:.4g} ({method.code})")
+                r.status_reason = (
+                    f"suspect — range of {n} repeats {spread:.4g} exceeds the critical range "
+                    f"f({n})·σ_r = {critical_range_factor(n):g} × {sd_from_limit(r_limit):.4g} "
+                    f"= {limit:.4g} (ISO 5725-6; r = {r_limit:.4g} at level {level:.4g}, "
+                    f"{method.code})")
                 session.add(r)
                 marked += 1
     session.flush()

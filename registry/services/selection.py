@@ -780,7 +780,7 @@ def run_selection(session: Session, actor: Actor, *, property_codes: list[str], 
     n_components : int or "model", optional
         A fixed component count, or ``"model"`` for the current model's own count.
     metric : {"mahalanobis", "euclidean"}
-        Distances on the scores: Mahalanobis H² = Σₐ Δtₐ²/λₐ or Euclidean.
+        Distances on the scores: Mahalanobis H² = Σₐ Δtₐ²/λₐ (ASTM E1655, from memory) or Euclidean.
     progress : callable, optional
         ``progress(stage, done, total)`` while loading spectra and picking.
     store : bool

@@ -1,8 +1,9 @@
 """Synthetic fuel populations for benchmarks and the demo (invented data, no database).
 
 Mid-IR spectra are rendered by Beer–Lambert from a band library of pure blend
-components (:mod:`.bands`), properties follow the blending rules of the domain
-notes §8 (:mod:`.blending`), and reference values get method-precision noise
+components (:mod:`.bands`), properties follow the blending rules of
+:mod:`.blending` (each with its source there), and reference values get the
+test methods' precision noise from the registry's method catalog
 (:mod:`.reference`).
 """
 

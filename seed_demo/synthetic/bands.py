@@ -1,13 +1,15 @@
 """Mid-IR absorption bands of the pure blend components of the synthetic demo.
 
 Everything here is invented data for the demo and the benchmarks. Band
-*positions* follow standard group-frequency correlation tables as collected in
-the project's domain notes §7 (CH₃/CH₂ stretches and bends, aromatic ring and
-out-of-plane bands, olefin C=C and vinyl/trans wags, ethanol O–H and C–O, the
-three ether bands 1203/1085/852, ester C=O and C–O–C). Positions not listed in
-§7 (for example the 1,2,4-trisubstituted benzene wags 885–870 and 825–805, the
-gem-dimethyl doublets near 1385/1365) are from standard correlation tables,
-from memory.
+*positions* follow standard group-frequency correlation tables (Socrates,
+*Infrared and Raman Characteristic Group Frequencies*, 3rd ed., Wiley 2001;
+Colthup, Daly & Wiberley, *Introduction to Infrared and Raman Spectroscopy*,
+3rd ed., Academic Press 1990; ranges from memory): CH₃/CH₂ stretches and
+bends, aromatic ring and out-of-plane bands, olefin C=C and vinyl/trans wags,
+ethanol O–H and C–O, the three ether bands 1203/1085/852, ester C=O and
+C–O–C. Comments marked "(tables)" below cite these ranges; the finer positions
+(for example the 1,2,4-trisubstituted benzene wags 885–870 and 825–805, the
+gem-dimethyl doublets near 1385/1365) are from the same tables, from memory.
 
 Band *heights* are invented. They are absorbances of the neat component per
 µm of path length at the band maximum (before the instrument line shape), so a
@@ -58,8 +60,8 @@ class Band:
 def default_axis() -> np.ndarray:
     """The demo wavenumber axis: 650–4000 cm⁻¹ every 2 cm⁻¹, ascending float64.
 
-    1,676 points; 4000–650 cm⁻¹ is the usual mid-IR range for fuels (domain
-    notes §7).
+    1,676 points; 4000–650 cm⁻¹ is the usual mid-IR range for fuels (common
+    practice).
     """
     return np.linspace(650.0, 4000.0, 1676, dtype=np.float64)
 
@@ -83,7 +85,7 @@ def _b(center, fwhm, height, shape="pvoigt", eta=0.5) -> Band:
     return Band(float(center), float(fwhm), float(height), shape, eta)
 
 
-# Aliphatic C–H stretches (domain notes §7): CH₃ asym 2972–2952, CH₃ sym
+# Aliphatic C–H stretches (tables): CH₃ asym 2972–2952, CH₃ sym
 # 2882–2862, CH₂ asym 2936–2916, CH₂ sym 2863–2843; bends 1475–1450 and the
 # CH₃ umbrella 1383–1377; CH₂ rock 726–722 for chains of four or more CH₂.
 BAND_LIBRARY: dict[str, tuple[Band, ...]] = {
@@ -119,7 +121,7 @@ BAND_LIBRARY: dict[str, tuple[Band, ...]] = {
         _b(903, 8, 0.0011), _b(862, 8, 0.0008),
     ),
     # FCC olefins (1-hexene-like plus internal trans): =C–H stretch ~3080,
-    # C=C 1680–1630, vinyl 990 & 910, trans 965 (§7)
+    # C=C 1680–1630, vinyl 990 & 910, trans 965 (tables)
     "olefins": (
         _b(3080, 12, 0.0022), _b(2962, 18, 0.0100), _b(2928, 20, 0.0120),
         _b(2860, 14, 0.0060), _b(1642, 10, 0.0028), _b(1462, 16, 0.0025),
@@ -127,36 +129,36 @@ BAND_LIBRARY: dict[str, tuple[Band, ...]] = {
         _b(910, 8, 0.0050),
     ),
     # aromatics: C–H 3100–3000, ring 1620–1585 and 1525–1470, out-of-plane
-    # 900–690 (§7): toluene ~730 & ~695
+    # 900–690 (tables): toluene ~730 & ~695
     "toluene": (
         _b(3063, 12, 0.0020), _b(3030, 14, 0.0035), _b(2921, 16, 0.0040),
         _b(2870, 14, 0.0020), _b(1605, 8, 0.0020), _b(1496, 8, 0.0045),
         _b(1460, 10, 0.0020), _b(1030, 8, 0.0008), _b(729, 8, 0.0150),
         _b(695, 8, 0.0110),
     ),
-    # o-xylene 770–735 (§7)
+    # o-xylene 770–735 (tables)
     "o_xylene": (
         _b(3020, 14, 0.0030), _b(2925, 16, 0.0060), _b(2870, 14, 0.0025),
         _b(1606, 8, 0.0010), _b(1495, 8, 0.0045), _b(1466, 10, 0.0025),
         _b(1120, 8, 0.0006), _b(742, 8, 0.0170),
     ),
-    # m-xylene ~770 & ~690 (§7)
+    # m-xylene ~770 & ~690 (tables)
     "m_xylene": (
         _b(3020, 14, 0.0030), _b(2922, 16, 0.0060), _b(2868, 14, 0.0025),
         _b(1614, 8, 0.0015), _b(1490, 8, 0.0040), _b(1460, 10, 0.0020),
         _b(769, 8, 0.0150), _b(691, 8, 0.0110),
     ),
-    # p-xylene ~795 (§7); ring band near 1517 (from memory)
+    # p-xylene ~795 (tables); ring band near 1517 (from memory)
     "p_xylene": (
         _b(3020, 14, 0.0030), _b(2920, 16, 0.0060), _b(2866, 14, 0.0025),
         _b(1517, 8, 0.0050), _b(1450, 10, 0.0015), _b(795, 8, 0.0170),
     ),
-    # benzene ~674 sharp (§7); 1479 and 1036 (from memory)
+    # benzene ~674 sharp (tables); 1479 and 1036 (from memory)
     "benzene": (
         _b(3070, 12, 0.0020), _b(3036, 12, 0.0030), _b(1479, 8, 0.0050),
         _b(1036, 8, 0.0030), _b(674, 5, 0.0185, "gauss"),
     ),
-    # ethanol: O–H 3650–3300 broad, C–O 1150–1030 (§7); the 1048 band is the
+    # ethanol: O–H 3650–3300 broad, C–O 1150–1030 (tables); the 1048 band is the
     # strongest C–O band, 1087 its shoulder, 880 the C–C–O stretch (from memory)
     "ethanol": (
         _b(3340, 260, 0.0080, "gauss"), _b(2973, 16, 0.0080),
@@ -164,7 +166,7 @@ BAND_LIBRARY: dict[str, tuple[Band, ...]] = {
         _b(1330, 16, 0.0015), _b(1087, 12, 0.0080), _b(1048, 12, 0.0140),
         _b(880, 10, 0.0060),
     ),
-    # methyl tert-butyl ether: 1203, 1085, 852 (§7); methoxy C–H ~2830 and the
+    # methyl tert-butyl ether: 1203, 1085, 852 (tables); methoxy C–H ~2830 and the
     # tert-butyl doublet (from memory)
     "mtbe": (
         _b(2980, 16, 0.0100), _b(2950, 16, 0.0060), _b(2830, 12, 0.0040),
@@ -200,7 +202,7 @@ BAND_LIBRARY: dict[str, tuple[Band, ...]] = {
         _b(745, 10, 0.0050),
     ),
     # fatty acid methyl esters (rapeseed-type, methyl oleate-like): ester C=O
-    # 1750–1735 and C–O–C 1290–1180 (§7); cis =C–H ~3005, O–CH₃ bend 1436 and
+    # 1750–1735 and C–O–C 1290–1180 (tables); cis =C–H ~3005, O–CH₃ bend 1436 and
     # the 1170 C–O band (from memory)
     "fame": (
         _b(3005, 12, 0.0010), _b(2924, 18, 0.0160), _b(2854, 14, 0.0100),

@@ -1,7 +1,5 @@
 """Blending rules that turn volume fractions into fuel properties (demo data).
 
-Rules follow the project's domain notes §8:
-
 * octane: a volume-linear base plus sensitivity, olefin and aromatic
   interaction corrections in the form of the interaction method of Healy,
   Maassen & Peterson ("A new approach to blending octanes", API Division of
@@ -13,15 +11,16 @@ Rules follow the project's domain notes §8:
 
   with x the molar ethanol fraction of the whole blend, ON_g the octane of the
   ethanol-free remainder and ON_e the octane of ethanol;
-* density: linear by volume;
-* vapour pressure: volume average of RVP^1.25, then inverted (blending-index
-  method, common practice);
+* density: linear by volume (ideal mixing; common practice);
+* vapour pressure of the ethanol-free remainder: volume average of RVP^1.25,
+  then inverted (blending-index method, common practice); ethanol then adds
+  the non-ideal shape of :func:`vapour_pressure`;
 * cetane number: linear by volume (near-linear without ignition improvers,
   from memory);
-* T50: invented for the demo — volume average of the normal boiling points,
-  lowered by ``ETHANOL_T50_DEPRESSION · v_e·(1 − v_e)`` because ethanol's
-  near-azeotropes with hydrocarbons depress the middle of the distillation
-  curve (qualitatively known, magnitude invented).
+* T50: the temperature at which half the volume has distilled, each pure
+  compound distilling at its boiling point and each lump over the boiling
+  range of the refinery cut it stands for (:func:`t50`; an idealised
+  distillation, invented for the demo).
 """
 
 from __future__ import annotations
@@ -33,8 +32,16 @@ from registry.errors import InputError
 
 from .components import COMPONENTS, FAMILY_COMPONENTS
 
-#: RVP blending-index exponent (domain notes §8).
+#: RVP blending-index exponent (common practice; the index method of refinery blending).
 RVP_EXPONENT = 1.25
+
+#: Ethanol's vapour-pressure shape (invented for the demo, see :func:`vapour_pressure`):
+#: how fast ethanol's own share saturates, and how strongly an ethanol-rich liquid
+#: drives the hydrocarbons out. Chosen so that a 60 kPa base gains about 6–7 kPa as E10
+#: (the "1 psi" rise of common practice), peaks near 6 vol % ethanol, and gives E85 of
+#: about 45 kPa (E85 40–70 kPa, common practice).
+ETHANOL_VP_SATURATION = 30.0
+ETHANOL_VP_HYDROCARBON_LIFT = 3.6
 
 #: Ethanol synergy Z for RON and MON. Invented for the demo; the sign follows
 #: Anderson & Wallington (Energy Fuels 2020), who found Z > 0 most often.
@@ -46,9 +53,6 @@ OCTANE_INTERACTIONS = {
     "RON": (0.030, 0.00050, -0.00060),
     "MON": (0.040, 0.00040, -0.00200),
 }
-
-#: T50 depression by ethanol in °C per unit v_e(1 − v_e) (invented).
-ETHANOL_T50_DEPRESSION = 100.0
 
 #: Property codes per fuel family, in column order.
 PROPERTY_CODES = {
@@ -119,6 +123,19 @@ def _fraction_of(v: np.ndarray, names: tuple[str, ...], name: str) -> np.ndarray
     return v[:, names.index(name)] if name in names else np.zeros(v.shape[0])
 
 
+def _without(v: np.ndarray, names: tuple[str, ...], component: str) -> np.ndarray:
+    """Rows of ``v`` with ``component`` removed and the rest renormalised to 1.
+
+    A row that is all ``component`` has no remainder and becomes all zeros;
+    callers weight it by 1 − (its fraction) = 0.
+    """
+    rest = v.copy()
+    if component in names:
+        rest[:, names.index(component)] = 0.0
+    total = rest.sum(axis=1, keepdims=True)
+    return np.divide(rest, total, out=np.zeros_like(rest), where=total > 0)
+
+
 def molar_fraction(composition: pd.DataFrame, component: str = "ethanol") -> np.ndarray:
     """Mole fraction of ``component`` computed from volume fractions.
 
@@ -134,29 +151,93 @@ def molar_fraction(composition: pd.DataFrame, component: str = "ethanol") -> np.
 
 
 def density(composition: pd.DataFrame) -> np.ndarray:
-    """Density in g/mL, linear by volume (domain notes §8)."""
+    """Density in g/mL, linear by volume (ideal mixing; common practice)."""
     v, names = as_volume_fractions(composition)
     return v @ _column(names, "density")
 
 
 def vapour_pressure(composition: pd.DataFrame) -> np.ndarray:
-    """Vapour pressure in kPa: (Σ v_k·RVP_k^1.25)^(1/1.25) (domain notes §8)."""
+    """Vapour pressure in kPa (DVPE-like, 37.8 °C), with ethanol's non-ideal hump.
+
+    The ethanol-free remainder blends by the index method,
+    P_g = (Σ v_k·RVP_k^1.25)^(1/1.25) over the remainder's volume fractions
+    (common practice). Ethanol (volume fraction v) then gives
+
+        VP = P_g·(1 − v)·(1 + c·v³) + P_e·G·v / (1 + (G − 1)·v)
+
+    with P_e ethanol's own vapour pressure. The second term is ethanol's share:
+    it rises steeply and saturates, since a little ethanol in hydrocarbons is
+    far from ideal; the first is the diluted hydrocarbons, lifted in an
+    ethanol-rich liquid that drives them out. The result has the shape known
+    from practice (common practice, magnitudes invented: G =
+    :data:`ETHANOL_VP_SATURATION`, c = :data:`ETHANOL_VP_HYDROCARBON_LIFT`):
+    a rise of a few kPa at E5–E10, a maximum near 5–10 vol % ethanol, a slow
+    fall through the mid-range, E85 at roughly 40–70 kPa, and neat ethanol at
+    its own vapour pressure. c < 4 keeps the hydrocarbon term falling for every
+    v; with ethanol's share saturated early, the curve then has one maximum
+    (checked in the tests for bases of 50–70 kPa).
+    """
     v, names = as_volume_fractions(composition)
-    index = v @ (_column(names, "rvp") ** RVP_EXPONENT)
-    return index ** (1.0 / RVP_EXPONENT)
+    v_e = _fraction_of(v, names, "ethanol")
+    rest = _without(v, names, "ethanol")
+    index = rest @ (_column(names, "rvp") ** RVP_EXPONENT)
+    base = index ** (1.0 / RVP_EXPONENT)
+    g, c = ETHANOL_VP_SATURATION, ETHANOL_VP_HYDROCARBON_LIFT
+    hydrocarbons = base * (1.0 - v_e) * (1.0 + c * v_e ** 3)
+    ethanol = COMPONENTS["ethanol"].rvp * g * v_e / (1.0 + (g - 1.0) * v_e)
+    return hydrocarbons + ethanol
 
 
 def cetane_number(composition: pd.DataFrame) -> np.ndarray:
-    """Cetane number, linear by volume (domain notes §8)."""
+    """Cetane number, linear by volume (near-linear without ignition improvers, from memory)."""
     v, names = as_volume_fractions(composition)
     return v @ _column(names, "cetane")
 
 
+def _distillation_ranges(names: tuple[str, ...]) -> tuple[np.ndarray, np.ndarray]:
+    """Start and end of each component's distillation, °C (equal for a pure compound)."""
+    lo, hi = [], []
+    for n in names:
+        c = COMPONENTS[n]
+        start, end = c.boiling_range if c.boiling_range else (c.boiling_point, c.boiling_point)
+        lo.append(start)
+        hi.append(end)
+    return np.asarray(lo, dtype=np.float64), np.asarray(hi, dtype=np.float64)
+
+
 def t50(composition: pd.DataFrame) -> np.ndarray:
-    """Invented T50 rule (°C): volume-average boiling point minus an ethanol term."""
+    """T50 in °C: the temperature at which half the volume has distilled.
+
+    An idealised distillation (invented for the demo): a pure compound
+    distils at its normal boiling point, a lump evenly over the boiling range
+    of the refinery cut it stands for, and ethanol over the range of its
+    azeotropes with hydrocarbons (``Component.boiling_range``). The distilled
+    volume is then piecewise linear in temperature, and T50 is read off it
+    exactly. With the demo recipes gasoline lands at about 85–105 °C and
+    diesel at about 260–270 °C (see the tests for the anchors).
+    """
     v, names = as_volume_fractions(composition)
-    v_e = _fraction_of(v, names, "ethanol")
-    return v @ _column(names, "boiling_point") - ETHANOL_T50_DEPRESSION * v_e * (1.0 - v_e)
+    lo, hi = _distillation_ranges(names)
+    points = np.unique(np.concatenate([lo, hi]))
+    width = (hi - lo)[:, None]
+    ramp = np.divide(points[None, :] - lo[:, None], width,
+                     out=np.zeros((lo.size, points.size)), where=width > 0)
+    ramp = np.clip(ramp, 0.0, 1.0)
+    pure = width <= 0
+    # distilled fraction of each component just after (right) and just before (left)
+    # each point: a pure compound jumps from 0 to 1 at its boiling point
+    right = v @ np.where(pure, points[None, :] >= lo[:, None], ramp)
+    left = v @ np.where(pure, points[None, :] > lo[:, None], ramp)
+    half = 0.5 - 1e-12
+    j = np.argmax(right >= half, axis=1)
+    rows = np.arange(v.shape[0])
+    before = np.maximum(j - 1, 0)
+    rising = (j > 0) & (left[rows, j] >= half)
+    gain = left[rows, j] - right[rows, before]
+    step = np.divide(0.5 - right[rows, before], gain, out=np.zeros(v.shape[0]), where=gain > 0)
+    between = points[before] + step * (points[j] - points[before])
+    # where a pure compound's jump carries the volume past one half, T50 is its boiling point
+    return np.where(rising, between, points[j])
 
 
 def _rt70_base(v: np.ndarray, names: tuple[str, ...], kind: str) -> np.ndarray:
@@ -199,13 +280,8 @@ def octane_number(composition: pd.DataFrame, kind: str = "RON") -> np.ndarray:
     v, names = as_volume_fractions(composition)
     v_e = _fraction_of(v, names, "ethanol")
     x = molar_fraction(composition, "ethanol")
-    rest = v.copy()
-    if "ethanol" in names:
-        rest[:, names.index("ethanol")] = 0.0
-    rest_total = rest.sum(axis=1, keepdims=True)
     # neat ethanol has no remainder; its weight (1 − x) is then 0 anyway
-    rest = np.divide(rest, rest_total, out=np.zeros_like(rest), where=rest_total > 0)
-    on_g = _rt70_base(rest, names, kind)
+    on_g = _rt70_base(_without(v, names, "ethanol"), names, kind)
     on_e = COMPONENTS["ethanol"].ron if kind == "RON" else COMPONENTS["ethanol"].mon
     on_g = np.where(v_e < 1.0, on_g, 0.0)
     return (1.0 - x) * on_g + x * on_e + ETHANOL_SYNERGY[kind] * x * (1.0 - x)

@@ -2,67 +2,29 @@
 
 A single result scatters with σ = r/2.77 within one laboratory and σ = R/2.77
 between laboratories, r and R being the method's repeatability and
-reproducibility (r, R ≈ 2.77·s; domain notes §2, derived). The figures below
-are those of domain notes §2; most are from memory there and are marked so.
+reproducibility, 95 % limits on the difference of two results (ISO 5725-6;
+ASTM E177; :func:`registry.precision.sd_from_limit`). r and R are read from
+the registry's own method catalog (:data:`registry.catalog.METHODS`, each
+figure with its source there), so the demo's noise and the registry's
+acceptance figures are one table.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
+from registry.catalog import method_of, precision_at
 from registry.errors import InputError
+from registry.precision import sd_from_limit
 
-#: r, R ≈ 2.77·s (domain notes §2; 2.77 ≈ 1.96·√2).
-PRECISION_FACTOR = 2.77
+from .blending import PROPERTY_CODES
 
-
-@dataclass(frozen=True)
-class Precision:
-    """Repeatability r and reproducibility R of a method, as linear functions of the level.
-
-    ``r(X) = r_at + r_slope·(X − level)`` and likewise for R; constant when the
-    slopes are zero.
-    """
-
-    method: str
-    level: float
-    r_at: float
-    R_at: float
-    r_slope: float = 0.0
-    R_slope: float = 0.0
-    source: str = ""
-
-    def limit(self, values: np.ndarray, between_labs: bool) -> np.ndarray:
-        at, slope = (self.R_at, self.R_slope) if between_labs else (self.r_at, self.r_slope)
-        return at + slope * (values - self.level)
-
-
-PRECISIONS: dict[str, Precision] = {
-    # ASTM D613: R = 3.8 at CN 48 and 4.3 at CN 52, linear between (read, §2);
-    # r 0.8 at 48 rising like R to ~0.9 at 52 (from memory, §2 gives 0.8–0.9)
-    "CN": Precision("ASTM D613", 48.0, r_at=0.8, R_at=3.8, r_slope=0.025, R_slope=0.125,
-                    source="domain notes §2: R read; r from memory"),
-    "RON": Precision("ASTM D2699", 0.0, r_at=0.2, R_at=0.7,
-                     source="domain notes §2, from memory"),
-    "MON": Precision("ASTM D2700", 0.0, r_at=0.2, R_at=0.9,
-                     source="domain notes §2, from memory"),
-    # chosen inside the §2 ranges r 0.0001–0.0005, R 0.0005–0.002 g/mL
-    "DENSITY": Precision("ASTM D4052", 0.0, r_at=0.0002, R_at=0.0010,
-                         source="domain notes §2 ranges, from memory; values chosen"),
-    # R ≈ 2–3 kPa (§2, from memory); r chosen as about a third of R (demo choice)
-    "VP": Precision("ASTM D5191", 0.0, r_at=0.8, R_at=2.5,
-                    source="domain notes §2 (R, from memory); r a demo choice"),
-    # the remaining figures are demo choices of plausible size (from memory,
-    # not taken from the method texts)
-    "T50": Precision("ASTM D86", 0.0, r_at=1.5, R_at=4.0, source="demo choice, from memory"),
-    "AROMATICS": Precision("ASTM D1319", 0.0, r_at=0.8, R_at=2.5,
-                           source="demo choice, from memory"),
-    "BENZENE": Precision("ASTM D6277", 0.0, r_at=0.03, R_at=0.12,
-                         source="demo choice, from memory"),
-    "ETHANOL": Precision("ASTM D5599", 0.0, r_at=0.1, R_at=0.4, source="demo choice, from memory"),
-    "FAME": Precision("EN 14078", 0.0, r_at=0.1, R_at=0.3, source="demo choice, from memory"),
+#: The catalog's method row for every property the generator produces.
+PRECISIONS: dict[str, dict[str, Any]] = {
+    code: method_of(code)
+    for code in dict.fromkeys(c for codes in PROPERTY_CODES.values() for c in codes)
 }
 
 
@@ -74,8 +36,9 @@ def reference_sigma(property_code: str, values, between_labs: bool = False) -> n
     arr = np.asarray(values, dtype=np.float64)
     if not np.isfinite(arr).all():
         raise InputError(f"{property_code} values must be finite", field=property_code)
-    limit = PRECISIONS[property_code].limit(arr, between_labs)
-    return np.maximum(limit, 0.0) / PRECISION_FACTOR
+    spec = PRECISIONS[property_code]["reproducibility" if between_labs else "repeatability"]
+    sigma = [sd_from_limit(max(precision_at(spec, level), 0.0)) for level in arr.ravel()]
+    return np.array(sigma, dtype=np.float64).reshape(arr.shape)
 
 
 def reference_noise(property_code: str, values, rng: np.random.Generator,
@@ -102,3 +65,4 @@ def reference_noise(property_code: str, values, rng: np.random.Generator,
     sigma = reference_sigma(property_code, values, between_labs)
     arr = np.asarray(values, dtype=np.float64)
     return arr + sigma * rng.standard_normal(arr.shape)
+

@@ -43,7 +43,7 @@ class Analyzer:
     name : str
         Label of the analyzer in the demo.
     pathlength_um : float
-        Cell path length in µm (25–100 µm for neat fuel, domain notes §7).
+        Cell path length in µm (25–100 µm for neat fuel in transmission; common practice).
     shift_cm : float
         Wavenumber shift of every band, cm⁻¹ (positive = to higher wavenumber).
     resolution_cm : float

@@ -5,7 +5,7 @@ Data: ``seed_demo.synthetic.generate_population`` — invented gasoline blends (
 grades, both seasons) with overlapping mid-IR bands, baseline and scatter effects, and
 properties that depend non-linearly on composition (octane with ethanol synergy and
 sensitivity corrections). Calibration reference values carry the test method's
-repeatability noise (σ = r/2.77, domain notes §2); the test set is scored against the
+repeatability noise (σ = r/2.77, ISO 5725-6); the test set is scored against the
 noise-free values so RMSEP measures the model, not the engine's scatter.
 
 Protocol (per property, seeds fixed):

@@ -1,10 +1,10 @@
-"""Expected lifecycle rules, written down from the project brief's own words.
+"""The registry's lifecycle and permission requirements, written down here as the test oracle.
 
 The tests compare the code's tables with these, so a slip in either shows up.
 Nothing here is imported from ``registry``.
 """
 
-# Project brief, "model lifecycle": "<state> --<action>--> <state>" for every legal move.
+# Requirement, model lifecycle: "<state> --<action>--> <state>" for every legal move.
 BRIEF_MOVES_TEXT = """
 draft --validate--> validated
 validated --validate--> validated
@@ -35,7 +35,7 @@ def brief_moves() -> dict[tuple[str, str], str]:
     return moves
 
 
-# Project brief, "permissions": the roles' duties in its words, then the
+# Requirement, permissions: the roles' duties, then the
 # documented decisions for actions the duties do not name (marked "decided").
 BRIEF_ROLE_DUTIES = {
     "admin": "user_add user_deactivate site_add instrument_add property_edit method_edit "
@@ -54,11 +54,11 @@ BRIEF_ROLE_DUTIES = {
 }
 
 # Decided: periodic revalidation of a version in service keeps its state, and
-# analysts may freeze calibration sets and validate (the brief's chemometrics
-# issue has an analyst do both; approval stays with a reviewer who neither
+# analysts may freeze calibration sets and validate (the chemometrics workflow
+# has an analyst do both; approval stays with a reviewer who neither
 # authored the version nor built its calibration set).
 
-# Project brief: the list of user actions the registry has.
+# Requirement: the list of user actions the registry has.
 BRIEF_ACTIONS = (
     "user_add user_deactivate site_add instrument_add instrument_event grade_add property_edit "
     "method_edit import_spectra import_references export_data correct_reference "

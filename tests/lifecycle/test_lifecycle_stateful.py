@@ -1,8 +1,8 @@
-"""Random sequences of lifecycle actions by random users, checked against the brief.
+"""Random sequences of lifecycle actions by random users, checked against the requirements.
 
 The machine acts as a service would (role check, separation of duties, state
-move) and compares each outcome with an oracle written from the brief's text
-(tests/lifecycle/brief.py): no sequence may reach a state the brief does not
+move) and compares each outcome with the oracle of required moves
+(tests/lifecycle/brief.py): no sequence may reach a state it does not
 allow, and nobody may approve a version they authored or whose calibration set
 they created.
 """
@@ -51,7 +51,7 @@ class Version:
 
 
 def oracle(version, action, actor):
-    """Would the brief allow ``actor`` to do ``action`` to ``version`` now?"""
+    """Would the requirements (brief.py) allow ``actor`` to do ``action`` to ``version`` now?"""
     if (version.state, action) not in MOVES:
         return False
     if not any(brief_allows(role, f"model_{action}") for role in USERS[actor]):
@@ -80,7 +80,7 @@ class LifecycleMachine(RuleBasedStateMachine):
 
     @rule(version=versions, data=st.data())
     def act(self, version, data):
-        # mostly moves the brief allows from this state, by users holding a fitting
+        # mostly moves the requirements allow from this state, by users holding a fitting
         # role, so that long lives (approved, active, retired) are reached; the rest
         # is anything by anyone
         legal = [a for a in USER_ACTIONS if (version.state, a) in MOVES]

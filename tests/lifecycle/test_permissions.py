@@ -1,4 +1,4 @@
-"""Every cell of role x action, against a table written from the brief's text (tests/lifecycle/brief.py)."""
+"""Every cell of role x action, against the requirements written in tests/lifecycle/brief.py."""
 
 import itertools
 
@@ -21,7 +21,7 @@ from tests.lifecycle.brief import BRIEF_ACTIONS, BRIEF_ROLES, brief_allows
 
 
 def test_action_enum_is_the_briefs_list():
-    # project brief: the registry's user actions
+    # requirement (tests/lifecycle/brief.py): the registry's user actions
     assert sorted(a.value for a in Action) == sorted(BRIEF_ACTIONS)
     assert len(BRIEF_ACTIONS) == len(set(BRIEF_ACTIONS)) == 30
 
@@ -36,7 +36,7 @@ def test_table_covers_every_action_and_phrase():
 
 @pytest.mark.parametrize("role,action", list(itertools.product(BRIEF_ROLES, BRIEF_ACTIONS)))
 def test_every_cell(role, action):
-    # project brief, "permissions" (plus the decisions documented in permissions.py)
+    # requirement (tests/lifecycle/brief.py), permissions (plus the decisions documented in permissions.py)
     if brief_allows(role, action):
         assert require({role}, action) is None
         assert is_allowed([role], action)
@@ -48,18 +48,18 @@ def test_every_cell(role, action):
 
 @pytest.mark.parametrize("role", BRIEF_ROLES)
 def test_every_role_may_view(role):
-    # project brief: "every role may view"
+    # requirement: every role may view
     require({role}, "view")
 
 
 def test_auditor_changes_nothing():
-    # project brief: auditor reads everything, verifies, exports, traces; changes nothing
+    # requirement: the auditor reads everything, verifies, exports, traces; changes nothing
     assert {a.value for a in allowed_actions({"auditor"})} == {"view", "audit_verify",
                                                                  "export_data", "trace"}
 
 
 def test_refusal_message_in_the_briefs_words():
-    # project brief: "user 'x' (roles: analyst) may not approve model versions; allowed roles: reviewer"
+    # required message form: "user 'x' (roles: analyst) may not approve model versions; allowed roles: reviewer"
     with pytest.raises(PermissionDenied) as info:
         require({"analyst"}, Action.MODEL_APPROVE, user="x")
     assert str(info.value) == ("user 'x' (roles: analyst) may not approve model versions; "

@@ -267,3 +267,82 @@ def test_plot_data_is_json_ready():
     assert len(data["ewma_ucl"]) == len(DESIGNED)
     assert {"index": 4, "rule": "beyond_3_sigma"}.items() <= data["signals"][0].items()
     assert "NaN" not in text
+
+
+# --------------------------------------------------------------------------- every window
+
+# Western Electric, Statistical Quality Control Handbook (1956), and Nelson, J. Qual.
+# Technol. 16:237 (1984), define each rule on every window of consecutive points, so a
+# pattern is the same signal at the start, in the middle and at the end of a chart. Each
+# pattern is placed at those three positions in a quiet series (±0.5σ alternating, 0 on
+# the centre line around the pattern so no run leaks in); the expected index is where the
+# pattern is complete, worked out by hand: the last point that counts towards it.
+PATTERNS = {
+    # rule: (pattern, offset of the completing point)
+    Rule.BEYOND_3_SIGMA: ([3.5], 0),
+    # 2 of 3 beyond 2σ: adjacent, and with an in-zone point between
+    Rule.TWO_OF_THREE_BEYOND_2_SIGMA: ([2.5, 2.5], 1),
+    "2_of_3_split": ([2.5, 0.5, 2.5], 2),
+    # 4 of 5 beyond 1σ: four adjacent, and four with an in-zone point between
+    Rule.FOUR_OF_FIVE_BEYOND_1_SIGMA: ([1.5, 1.5, 1.5, 1.5], 3),
+    "4_of_5_split": ([1.5, 1.5, 0.5, 1.5, 1.5], 4),
+    # nine in a row on one side (Nelson 1984)
+    Rule.RUN_ON_ONE_SIDE: ([0.5] * 9, 8),
+}
+RULE_OF = {"2_of_3_split": Rule.TWO_OF_THREE_BEYOND_2_SIGMA,
+           "4_of_5_split": Rule.FOUR_OF_FIVE_BEYOND_1_SIGMA}
+LENGTH = 40
+
+
+def _placed(pattern, where, side):
+    quiet = [0.5 if i % 2 else -0.5 for i in range(LENGTH)]
+    start = {"start": 0, "middle": 17, "end": LENGTH - len(pattern)}[where]
+    x = quiet[:start] + [side * v for v in pattern] + quiet[start + len(pattern):]
+    # the centre line ends any run of the quiet points into or out of the pattern
+    if start > 0:
+        x[start - 1] = 0.0
+    if start + len(pattern) < LENGTH:
+        x[start + len(pattern)] = 0.0
+    return x, start
+
+
+@pytest.mark.parametrize("side", [1, -1], ids=["above", "below"])
+@pytest.mark.parametrize("where", ["start", "middle", "end"])
+@pytest.mark.parametrize("key", list(PATTERNS), ids=str)
+def test_each_rule_signals_at_start_middle_and_end(key, where, side):
+    pattern, completes = PATTERNS[key]
+    rule = RULE_OF.get(key, key)
+    x, start = _placed(pattern, where, side)
+    signals = evaluate(x, center=0.0, sigma=1.0)
+    zone_and_run = {Rule.BEYOND_3_SIGMA, Rule.TWO_OF_THREE_BEYOND_2_SIGMA,
+                    Rule.FOUR_OF_FIVE_BEYOND_1_SIGMA, Rule.RUN_ON_ONE_SIDE}
+    got = [(s.index, s.rule) for s in signals if s.rule in zone_and_run]
+    # exactly one signal, by this rule, where the pattern completes: the other rules stay
+    # quiet, and the overlapping windows that hold the same points add no second signal
+    assert got == [(start + completes, rule)]
+
+
+def test_two_of_three_in_the_first_two_results_signals():
+    # the first two results beyond 2σ, the third back in
+    # zone; every window of three that holds them is a 2-of-3 pattern (Nelson 1984)
+    x = [2.5, 2.5, 0.0] + [0.5 if i % 2 else -0.5 for i in range(20)]
+    got = [s.index for s in evaluate(x, center=0.0, sigma=1.0)
+           if s.rule == Rule.TWO_OF_THREE_BEYOND_2_SIGMA]
+    assert got == [1]
+
+
+def test_a_pattern_that_goes_on_signals_at_each_new_point_that_completes_it():
+    # three results beyond 2σ: the second completes 2 of 3, the third completes the
+    # window (1, 2, 3) again; each point signals once, as the run rule does
+    x = [0.5, -0.5, 2.5, 2.5, 2.5, 0.0, -0.5, 0.5]
+    got = [s.index for s in evaluate(x, center=0.0, sigma=1.0)
+           if s.rule == Rule.TWO_OF_THREE_BEYOND_2_SIGMA]
+    assert got == [3, 4]
+
+
+def test_zone_points_on_opposite_sides_do_not_add_up():
+    # "on the same side" (Western Electric 1956): one point above and one below 2σ is
+    # no 2-of-3 pattern
+    x = [2.5, -2.5, 0.0] + [0.5 if i % 2 else -0.5 for i in range(10)]
+    assert not [s for s in evaluate(x, center=0.0, sigma=1.0)
+                if s.rule == Rule.TWO_OF_THREE_BEYOND_2_SIGMA]

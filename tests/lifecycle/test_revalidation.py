@@ -69,7 +69,7 @@ def test_due_date_refuses_naive_times_and_bad_intervals():
             due_date(datetime(2026, 1, 1, tzinfo=UTC), bad)
 
 
-# --- due_status (project brief: any open trigger makes revalidation due now)
+# --- due_status (requirement: any open trigger makes revalidation due now)
 
 DUE = datetime(2026, 6, 30, 12, 0, tzinfo=UTC)
 

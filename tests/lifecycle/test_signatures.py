@@ -115,7 +115,7 @@ def test_signed_content_hash_refuses_empty_or_non_text_parts():
 
 
 def test_meanings_per_action():
-    # project brief; 21 CFR Part 11 §11.50(a)(3) asks that the meaning be stated
+    # 21 CFR Part 11 §11.50(a)(3) asks that the meaning be stated
     assert {a.value: m for a, m in SIGNATURE_MEANINGS.items()} == {
         "approve": "approved as reviewer", "reject": "rejected as reviewer",
         "activate": "activated for use", "retire": "retired from use"}

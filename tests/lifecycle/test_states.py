@@ -1,4 +1,4 @@
-"""Model-version states: every (state, action) pair against the brief's list of moves."""
+"""Model-version states: every (state, action) pair against the required moves (tests/lifecycle/brief.py)."""
 
 import itertools
 
@@ -25,20 +25,20 @@ MOVES = brief_moves()
 
 
 def test_enums_hold_exactly_the_briefs_names():
-    # project brief: the eight states and seven actions by name
+    # requirement (tests/lifecycle/brief.py): the eight states and seven actions by name
     assert [s.value for s in ModelState] == BRIEF_STATES
     assert [a.value for a in LifecycleAction] == BRIEF_LIFECYCLE_ACTIONS
 
 
 def test_table_equals_briefs_moves():
-    # project brief, "model lifecycle"
+    # requirement (tests/lifecycle/brief.py), model lifecycle
     assert {(s.value, a.value): t.value for (s, a), t in TRANSITIONS.items()} == MOVES
 
 
 @pytest.mark.parametrize("state,action", list(itertools.product(BRIEF_STATES,
                                                                 BRIEF_LIFECYCLE_ACTIONS)))
 def test_every_state_action_pair(state, action):
-    # project brief, "model lifecycle": legal moves lead where the brief says,
+    # requirement (tests/lifecycle/brief.py): legal moves lead where it says,
     # every other pair is refused with the state and the allowed actions named.
     if (state, action) in MOVES:
         assert check_transition(state, action) == MOVES[(state, action)]
@@ -58,13 +58,13 @@ def test_every_state_action_pair(state, action):
 
 
 def test_message_in_the_briefs_words():
-    # project brief: "model v3 is in_review; allowed actions: approve, reject"
+    # required message form: "model v3 is in_review; allowed actions: approve, reject"
     with pytest.raises(StateError, match="model v3 is in_review; allowed actions: approve, reject$"):
         check_transition(ModelState.IN_REVIEW, LifecycleAction.ACTIVATE, label="model v3")
 
 
 def test_terminal_states_are_those_with_no_way_out():
-    # project brief: retired, superseded and rejected are terminal
+    # requirement: retired, superseded and rejected are terminal
     no_exit = {s for s in BRIEF_STATES if not any((s, a) in MOVES for a in BRIEF_LIFECYCLE_ACTIONS)}
     assert {s.value for s in TERMINAL_STATES} == no_exit == {"retired", "superseded", "rejected"}
     assert all(is_terminal(s) for s in no_exit)
@@ -72,7 +72,7 @@ def test_terminal_states_are_those_with_no_way_out():
 
 
 def test_allowed_actions_hide_the_system_move_from_users():
-    # project brief: supersede is a system action
+    # requirement: supersede is a system action
     assert allowed_actions("active") == ["validate", "activate", "retire"]
     assert allowed_actions("active", include_system=True) == ["validate", "activate", "retire",
                                                               "supersede"]
@@ -85,7 +85,7 @@ def test_unknown_names_are_input_errors(state, action):
     assert info.value.field in ("state", "action")
 
 
-# --- separation of duties (project brief: the approver is neither the author
+# --- separation of duties (requirement: the approver is neither the author
 # --- nor the creator of the calibration set; only the author submits)
 
 def test_author_may_not_approve_own_version():

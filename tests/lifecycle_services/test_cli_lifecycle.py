@@ -1,9 +1,10 @@
-"""The brief's "done when", from the command line: a reviewer approves a validated version
+"""The lifecycle from the command line: a reviewer approves a validated version
 with a signature, the author cannot, QC signals make the model due and `specledger due`
 shows it (in the site's time zone).
 
-Sources: the project brief (issue text: CLI commands and "Done when"); 21 CFR Part 11
-§11.50 (signer, date and time, meaning shown with a signature).
+Sources: the CLI commands as README.md's tour shows them; the lifecycle requirements in
+tests/lifecycle/brief.py; 21 CFR Part 11 §11.50 (signer, date and time, meaning shown with a
+signature).
 """
 
 from __future__ import annotations

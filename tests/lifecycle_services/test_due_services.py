@@ -1,6 +1,6 @@
 """What makes a model due, and how `due` lists it (UTC and each site's zone).
 
-Sources: the project brief ("Revalidation" and "Tests"); time-zone offsets from the
+Sources: the revalidation requirements stated beside each check; time-zone offsets from the
 IANA tz database rules (from memory: Portugal keeps EU summer time, UTC+1 from the
 last Sunday of March to the last Sunday of October, else UTC+0; Chicago keeps US
 daylight time, UTC−5 from the second Sunday of March to the first Sunday of November,
@@ -80,7 +80,7 @@ def test_overdue_first_then_by_due_date(reg):
     assert [r["label"] for r in rows] == [reg.v2, reg.v1]
     assert rows[0]["overdue"] and rows[0]["days_left"] <= 0 and not rows[1]["overdue"]
     assert rows[0]["due_at_local"] == []  # approved, not deployed anywhere: UTC only
-    assert rows[1]["days_left"] in (364, 365)  # default policy: 365 days (brief)
+    assert rows[1]["days_left"] in (364, 365)  # default policy: 365 days (yearly; common practice)
 
 
 def test_manual_trigger_needs_a_known_kind_and_a_model_in_service(reg):

@@ -1,6 +1,6 @@
 """Submit → approve (signed) → activate → supersede/retire through the services.
 
-Sources beside the checks: the project brief's lifecycle and signature rules;
+Sources beside the checks: the lifecycle requirements in tests/lifecycle/brief.py;
 21 CFR Part 11 §11.50 (a signature shows signer, date and time, and meaning);
 SHA-256 as computed by Python's hashlib (FIPS 180-4).
 """
@@ -43,7 +43,7 @@ def test_reviewer_approves_with_a_signature_over_the_three_hashes(reg):
         rec = s.exec(select(ValidationRecord).where(ValidationRecord.model_version_id == mv.id)).one()
         sig = s.get(Signature, sig.id)
         change = s.exec(select(ModelStateChange).where(ModelStateChange.signature_id == sig.id)).one()
-        # §11.50: signer, date and time, meaning; the brief adds the reason and what was signed.
+        # §11.50: signer, date and time, meaning; the registry adds the reason and what was signed.
         assert mv.state == "approved"
         assert sig.user_id == reg.actors["reviewer"].id
         assert sig.meaning == "approved as reviewer"
@@ -100,7 +100,8 @@ def test_wrong_password_writes_nothing(reg):
 
 
 def test_illegal_moves_name_the_state_and_the_allowed_actions(reg):
-    # Brief: "Any other transition → a clear error naming the current state and the allowed ones."
+    # Requirement: any other transition gives a clear error naming the current state and the
+    # allowed ones.
     with session_scope(reg.engine) as s, pytest.raises(StateError) as err:
         lifecycle.approve_model(s, reg.actors["reviewer"], reg.v1, password=PASSWORD)
     assert "validated" in str(err.value) and "submit" in str(err.value)
@@ -157,7 +158,7 @@ def test_activating_a_new_version_supersedes_the_old_in_one_transaction(reg):
                       .order_by(ModelStateChange.id.desc())).first()
         assert last.to_state == "superseded" and last.reason == f"superseded by {reg.v2}"
         assert last.user_id == reg.actors["lab_manager"].id
-        # Brief: only one active version per (property, grade, instrument).
+        # Requirement: only one active version per (property, grade, instrument).
         active = s.exec(select(Deployment).where(Deployment.state == "active")).all()
         assert sorted(d.instrument_id for d in active) == sorted({d.instrument_id for d in active})
 

@@ -1,7 +1,7 @@
 """A stateful property test of the lifecycle *through the services* (hypothesis).
 
 Random sequences of submit / approve / reject / activate / retire on one validated
-version, each by the user whose role and duty it is. The oracle is the brief's list
+version, each by the user whose role and duty it is. The oracle is the required list
 of legal moves (tests/lifecycle/brief.py): a legal move must succeed and lead to the
 listed state; any other must be refused with a StateError naming the current state,
 and write nothing. Kept small (a few examples) because every signature re-checks a

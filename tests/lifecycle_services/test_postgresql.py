@@ -1,7 +1,7 @@
 """The signed lifecycle, QC signal and due list on PostgreSQL (the multi-site engine).
 
 Same checks as the SQLite tests beside this file, in one pass: sources are named there
-(21 CFR Part 11 §11.50; NIST/SEMATECH e-Handbook §6.3.2 chart limits; the brief).
+(21 CFR Part 11 §11.50; NIST/SEMATECH e-Handbook §6.3.2 chart limits; tests/lifecycle/brief.py).
 """
 
 from __future__ import annotations

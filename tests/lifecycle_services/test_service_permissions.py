@@ -1,6 +1,6 @@
 """Every role × lifecycle service: refused with a clear message and nothing written, or let through.
 
-Expected cells come from the project brief's role duties as written down in
+Expected cells come from the required role duties written down in
 tests/lifecycle/brief.py (not from the registry's own table). "Nothing written" is
 checked strictly: the session is committed after the refusal, then every table's row
 count (audit events included) is compared.
@@ -68,7 +68,7 @@ def test_every_role_is_refused_or_let_through_as_the_brief_says(reg, service):
     triggers = _trigger_ids(reg)
     refused = [r for r in BRIEF_ROLES if not brief_allows(r, action)]
     allowed = [r for r in BRIEF_ROLES if brief_allows(r, action)]
-    assert allowed, f"the brief gives {action} to some role"
+    assert allowed, f"the requirements (brief.py) give {action} to some role"
     before = reg.counts()
     for role in refused:
         actor = reg.actors[role]

@@ -28,7 +28,7 @@ def exhaustive_best(Z, k, fixed=()):
 
 def test_matches_exhaustive_optimum_on_small_instances():
     # Source: exhaustive search over all C(14, 4) designs (itertools.combinations).
-    # Goal from the brief: optimum found in >= 90 % of seeds, never below 0.9 of it.
+    # Goal (the registry's own acceptance bar): optimum found in >= 90 % of seeds, never below 0.9 of it.
     ratios = []
     for seed in range(50):
         T = np.random.default_rng(seed).normal(size=(14, 3))

@@ -84,7 +84,7 @@ def test_outside_coverage_pool_is_what_the_model_flags(with_model):
                 if set(flags) & set(SPACE_FLAGS)}
     assert {names[p] for p in res.pool_sample_ids} == expected
     # A band absent from every calibration spectrum leaves a spectral residual the model
-    # cannot explain (Q-residual check, ASTM E1655 practice as summarised in domain notes §4).
+    # cannot explain (Q-residual check, ASTM E1655, from memory).
     assert set(info["new_component"]) <= expected
     for row in res.rows:
         assert row["flags"] and "outside the RON model's space" in row["reason"]

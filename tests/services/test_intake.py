@@ -1,7 +1,8 @@
 """Intake through the service layer: all-or-nothing imports, duplicates, references, repeats.
 
-External anchors: repeatability r of ASTM D2699 (RON) = 0.2 from memory (domain notes §2);
-"two results differing by more than r are suspect" is common practice.
+External anchors: repeatability r of ASTM D2699 (RON) = 0.2 at RON 90–100 (from memory);
+repeats whose range exceeds the critical range f(n)·σ_r are suspect (ISO 5725-6:1994,
+f = 2.8, 3.3, 3.6, 3.9 for n = 2…5; σ_r = r/2.77, ISO 5725-6 and ASTM E177).
 """
 
 from __future__ import annotations
@@ -189,7 +190,7 @@ def test_duplicate_rows_are_rejected(with_samples, tmp_path):
             references.import_references(s, actors["analyst"], _refs(tmp_path, row, "again.csv"))
 
 
-def test_repeats_beyond_r_are_suspect_and_held_out(with_samples, tmp_path):
+def test_repeats_beyond_the_critical_range_are_suspect_and_held_out(with_samples, tmp_path):
     engine, actors = with_samples
     # RON r = 0.2 (ASTM D2699, from memory): 95.0 vs 95.1 agree, 94.0 vs 94.6 do not.
     body = ("R0,RON,ASTM D2699,95.0,,L,2027-03-02\nR0,RON,ASTM D2699,95.1,,L,2027-03-03\n"
@@ -206,7 +207,7 @@ def test_repeats_beyond_r_are_suspect_and_held_out(with_samples, tmp_path):
     assert ids["R1"] not in values  # held out until a reviewer resolves it
     with session_scope(engine) as s:
         suspect = s.exec(select(ReferenceResult).where(ReferenceResult.status == "suspect")).all()
-        assert all("exceeds r" in r.status_reason for r in suspect)
+        assert all("exceeds the critical range f(2)" in r.status_reason for r in suspect)
         with pytest.raises(PermissionDenied):
             references.resolve_suspect(s, actors["analyst"], suspect[0].id, "reject", "x")
         references.resolve_suspect(s, actors["reviewer"], suspect[0].id, "reject",
@@ -215,6 +216,48 @@ def test_repeats_beyond_r_are_suspect_and_held_out(with_samples, tmp_path):
     with session_scope(engine) as s:
         values = calibration_values(s, [ids["R1"]], get_property(s, "RON").id)
     assert ids["R1"] in values and len(values[ids["R1"]][1]) == 1
+
+
+# RON r = 0.2 (ASTM D2699, from memory), σ_r = 0.2/2.77 = 0.0722; critical ranges
+# f(n)·σ_r = 0.202, 0.238, 0.260, 0.281 for n = 2…5 (ISO 5725-6 Table 1 factors). For each n
+# a range just inside (kept) and just outside (suspect); every "kept" range exceeds r = 0.2,
+# so comparing the range with r for every n would wrongly mark those repeats suspect.
+@pytest.mark.parametrize("n, kept, suspect", [(2, 0.201, 0.21), (3, 0.23, 0.25),
+                                              (4, 0.25, 0.27), (5, 0.27, 0.29)])
+def test_repeats_are_judged_by_the_iso_5725_6_critical_range_for_n(with_samples, tmp_path,
+                                                                  n, kept, suspect):
+    engine, actors = with_samples
+    lines = []
+    for sample, spread in (("R0", kept), ("R1", suspect)):
+        # n results evenly spread over the range, on different days
+        for k, v in enumerate(np.linspace(95.0, 95.0 + spread, n)):
+            lines.append(f"{sample},RON,ASTM D2699,{v:.4f},,L,2027-03-{k + 2:02d}")
+    with session_scope(engine) as s:
+        summary = references.import_references(s, actors["analyst"],
+                                               _refs(tmp_path, "\n".join(lines) + "\n"))
+    assert summary.imported == 2 * n and summary.suspect == n
+    with session_scope(engine) as s:
+        ids = {x.external_id: x.id for x in s.exec(select(Sample)).all()}
+        status = {sid: {r.status for r in s.exec(select(ReferenceResult).where(
+            ReferenceResult.sample_id == ids[sid])).all()} for sid in ("R0", "R1")}
+        reason = s.exec(select(ReferenceResult.status_reason).where(
+            ReferenceResult.status == "suspect")).first()
+    assert status == {"R0": {"valid"}, "R1": {"suspect"}}
+    assert f"f({n})" in reason and "ISO 5725-6" in reason
+
+
+def test_a_later_repeat_is_judged_with_all_repeats_of_the_sample(with_samples, tmp_path):
+    # two results 0.15 apart agree (≤ r); a third 0.24 from the first makes a range of
+    # three above f(3)·σ_r = 3.3 × 0.2/2.77 = 0.238 (ISO 5725-6), so all three are suspect
+    engine, actors = with_samples
+    first = "R2,RON,ASTM D2699,95.00,,L,2027-03-02\nR2,RON,ASTM D2699,95.15,,L,2027-03-03\n"
+    with session_scope(engine) as s:
+        assert references.import_references(s, actors["analyst"], _refs(tmp_path, first)).suspect == 0
+    later = "R2,RON,ASTM D2699,95.24,,L,2027-03-04\n"
+    with session_scope(engine) as s:
+        summary = references.import_references(s, actors["analyst"],
+                                               _refs(tmp_path, later, "later.csv"))
+    assert summary.suspect == 3
 
 
 def test_correction_supersedes_and_keeps_the_old_result(with_samples, tmp_path):
@@ -263,7 +306,7 @@ def test_reviewer_finds_suspect_results_in_the_list(with_samples, tmp_path):
     with session_scope(engine) as s:
         rows = references.list_references(s, actors["reviewer"], status="suspect")
         assert {r["sample"] for r in rows} == {"R3"} and len(rows) == 2
-        assert all("exceeds r" in r["reason"] for r in rows)
+        assert all("critical range" in r["reason"] for r in rows)
         with pytest.raises(InputError, match="unknown status"):
             references.list_references(s, actors["reviewer"], status="odd")
 

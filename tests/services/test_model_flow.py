@@ -41,7 +41,7 @@ def test_model_trains_validates_and_predicts(trained):
     engine, actors, info, cs, mv = trained
     assert mv.state == "draft" and 1 <= mv.n_components <= 12
     assert len(mv.cv["rmsecv"]) == 12
-    # The synthetic RON carries engine-rating noise σ = r/2.77 (domain notes §2), so RMSECV
+    # The synthetic RON carries engine-rating noise σ = r/2.77 (ISO 5725-6), so RMSECV
     # cannot be far below it and a working model must be well below the RON spread.
     rmsecv = mv.cv["rmsecv"][mv.n_components - 1]
     assert 0.05 < rmsecv < 0.5 * float(np.std(info["ron"]))

@@ -1,9 +1,9 @@
 """Band positions of the pure-component spectra.
 
-Expected ranges are the group frequencies of the domain notes §7, read from
-standard correlation tables; "~X" positions are taken as X ± 4 cm⁻¹ (one
-resolution element at 4 cm⁻¹, common practice). Ranges not in §7 are from
-standard correlation tables, from memory, and say so.
+Expected ranges are group frequencies from standard correlation tables (Socrates,
+*Infrared and Raman Characteristic Group Frequencies*, 3rd ed., Wiley 2001; from
+memory); "~X" positions are taken as X ± 4 cm⁻¹ (one resolution element at 4 cm⁻¹,
+common practice). Finer positions from the same tables are marked "from memory".
 """
 
 import pytest
@@ -22,7 +22,7 @@ def spectrum(name):
 
 
 # (component, search window, expected range) — every expected range is the
-# domain notes §7 group frequency unless the comment says otherwise
+# correlation-table group frequency unless the comment says otherwise
 CASES = [
     ("benzene", (650, 720), (670, 678)),           # benzene ~674 sharp
     ("toluene", (715, 760), (726, 734)),           # toluene ~730
@@ -67,7 +67,7 @@ def test_band_maximum_inside_correlation_table_range(name, window, expected):
 
 
 def test_fame_has_a_prominent_c_o_c_band_in_range():
-    # FAME C–O–C 1290–1180 (domain notes §7): at least one band there is
+    # FAME C–O–C 1290–1180 (correlation tables): at least one band there is
     # strong (≥ 30 % of the ester C=O band)
     y = spectrum("fame")
     idx, _ = find_peaks(y)
@@ -77,7 +77,7 @@ def test_fame_has_a_prominent_c_o_c_band_in_range():
 
 
 def test_ethanol_c_o_band_is_where_hydrocarbons_are_quiet():
-    # domain notes §7: C–O 1150–1030 is the best band for ethanol in gasoline,
+    # C–O 1150–1030 (correlation tables) is the best band for ethanol in gasoline,
     # i.e. ethanol absorbs there far more than the main hydrocarbon streams
     window = (AXIS >= 1030) & (AXIS <= 1150)
     ethanol = spectrum("ethanol")[window].max()
@@ -86,8 +86,8 @@ def test_ethanol_c_o_band_is_where_hydrocarbons_are_quiet():
 
 
 def test_every_component_stays_below_the_linear_range_limit():
-    # neat component in the thickest cell of domain notes §7 (100 µm) stays
-    # below absorbance 2 (linear range limit of the brief; common practice)
+    # neat component in the thickest usual cell (100 µm; common practice) stays
+    # below absorbance 2, where Beer–Lambert stays linear (common practice)
     pure = pure_component_spectra(list(BAND_LIBRARY), REFERENCE_ANALYZER, AXIS)
     assert (pure * 100.0).max() < 2.0
     assert pure.min() >= 0.0

@@ -1,4 +1,10 @@
-"""Blending rules against independent computations (domain notes §8)."""
+"""Blending rules against independent computations and the shapes known from practice.
+
+Sources: CRC Handbook of Chemistry and Physics for densities, molar masses, boiling points
+and vapour pressures (from memory); the RVP blending index (RVP^1.25, common practice);
+ethanol's effect on gasoline vapour pressure — a rise of about 1 psi (6.9 kPa) at E10, a
+maximum near 5–10 vol %, E85 at about 40–70 kPa (common practice).
+"""
 
 import numpy as np
 import pandas as pd
@@ -9,7 +15,7 @@ from hypothesis import strategies as st
 from registry.errors import InputError
 from seed_demo.synthetic import blend_properties
 from seed_demo.synthetic.blending import (ETHANOL_SYNERGY, density, molar_fraction,
-                                          octane_number, vapour_pressure)
+                                          octane_number, t50, vapour_pressure)
 from seed_demo.synthetic.components import COMPONENTS
 
 # handbook values typed here, independent of the component table
@@ -86,15 +92,15 @@ def test_molar_fraction_from_volumes(v_e):
 
 
 def test_density_is_linear_by_volume():
-    # domain notes §8: density linear by volume; handbook densities typed above
+    # density linear by volume (ideal mixing, common practice); handbook densities typed above
     blend = mix(isooctane=0.6, toluene=0.25, ethanol=0.15)
     expected = 0.6 * ISOOCTANE_RHO + 0.25 * TOLUENE_RHO + 0.15 * ETHANOL_RHO
     assert density(blend)[0] == pytest.approx(expected, abs=0.002)
 
 
 def test_vapour_pressure_averages_rvp_to_the_1_25_and_inverts():
-    # domain notes §8: average RVP^1.25 by volume, then invert; isooctane
-    # 11.8 kPa and isopentane 138 kPa (RVP at 37.8 °C, from memory)
+    # blending index (common practice): average RVP^1.25 by volume, then invert;
+    # isooctane 11.8 kPa and isopentane 138 kPa (RVP at 37.8 °C, from memory)
     blend = mix(isooctane=0.5, isopentane=0.5)
     expected = (0.5 * 11.8 ** 1.25 + 0.5 * 138.0 ** 1.25) ** (1 / 1.25)
     assert vapour_pressure(blend)[0] == pytest.approx(expected, rel=0.01)
@@ -104,8 +110,74 @@ def test_vapour_pressure_averages_rvp_to_the_1_25_and_inverts():
     assert vapour_pressure(blend)[0] > 0.5 * (11.8 + 138.0)
 
 
+def _base_of(vp_kpa):
+    """Isopentane/isooctane base with the given vapour pressure, by the index rule."""
+    a = (vp_kpa ** 1.25 - 11.8 ** 1.25) / (138.0 ** 1.25 - 11.8 ** 1.25)
+    return {"isopentane": a, "isooctane": 1.0 - a}
+
+
+def _splash(base, v_e):
+    """Ethanol splash-blended into ``base`` at volume fractions ``v_e``."""
+    v_e = np.asarray(v_e, dtype=float)
+    return mix(ethanol=v_e, **{k: f * (1.0 - v_e) for k, f in base.items()})
+
+
+ETHANOL_GRID = np.round(np.arange(0.0, 1.0001, 0.0025), 4)
+
+
+@pytest.mark.parametrize("base_kpa", [50.0, 60.0, 70.0])
+def test_ethanol_vapour_pressure_peaks_near_5_to_10_percent(base_kpa):
+    # common practice: ethanol raises a gasoline's vapour pressure most at 5–10 vol %,
+    # by about 1 psi (6.9 kPa) at E10, and less again as more ethanol is added
+    vp = vapour_pressure(_splash(_base_of(base_kpa), ETHANOL_GRID))
+    assert vp[0] == pytest.approx(base_kpa, rel=1e-9)
+    peak = ETHANOL_GRID[np.argmax(vp)]
+    assert 0.05 <= peak <= 0.10, peak
+    e10 = vp[ETHANOL_GRID == 0.10][0]
+    assert 3.0 < e10 - base_kpa < 10.0
+    # one maximum: from the peak to neat ethanol the vapour pressure only falls
+    assert (np.diff(vp[np.argmax(vp):]) < 0).all()
+
+
+@pytest.mark.parametrize("base_kpa", [60.0, 85.0])
+def test_e85_and_neat_ethanol_vapour_pressures(base_kpa):
+    vp = vapour_pressure(_splash(_base_of(base_kpa), [0.85, 1.0]))
+    # E85 about 40–70 kPa (common practice), from a summer and a winter base
+    assert 40.0 <= vp[0] <= 70.0
+    # neat ethanol: its own vapour pressure at 37.8 °C, 15.9 kPa (CRC Handbook, from memory)
+    assert vp[1] == pytest.approx(15.9, abs=0.05)
+
+
+def test_t50_of_a_pure_compound_is_its_boiling_point():
+    # toluene boils at 110.6 °C (CRC Handbook, from memory)
+    assert t50(mix(toluene=1.0))[0] == pytest.approx(110.6)
+
+
+def test_t50_reads_the_half_distilled_point_of_the_idealised_curve():
+    # 70 % light n-paraffins distilling evenly from n-pentane (36.1 °C) to n-octane
+    # (125.7 °C) and 30 % toluene at 110.6 °C (boiling points: CRC Handbook, from
+    # memory): half the volume is over when 0.7·(T − 36.1)/89.6 = 0.5, below 110.6 °C
+    expected = 36.1 + 0.5 / 0.7 * (125.7 - 36.1)
+    assert t50(mix(n_paraffins=0.7, toluene=0.3))[0] == pytest.approx(expected, abs=1e-9)
+    # 40 % of the lump is only 0.4·(110.6 − 36.1)/89.6 < 0.5 when toluene boils: T50 is
+    # then toluene's boiling point, where its volume carries the curve past one half
+    assert t50(mix(n_paraffins=0.4, toluene=0.6))[0] == pytest.approx(110.6)
+
+
+def test_ethanol_lowers_t50_and_heavy_aromatics_raise_it():
+    # ethanol distils early with the hydrocarbons as azeotropes, so E10 has a lower T50
+    # than its base (hence ASTM D4814's lower T50 minimum for ethanol blends, from
+    # memory); a C9 aromatic stream boils near 160–176 °C and raises T50
+    base = {"isopentane": 0.15, "n_paraffins": 0.25, "naphthenes": 0.2, "isooctane": 0.15,
+            "toluene": 0.15, "o_xylene": 0.1}
+    plain = t50(mix(**base))[0]
+    assert t50(_splash(base, [0.10]))[0] < plain - 2.0
+    heavy = {k: f * 0.88 for k, f in base.items()} | {"heavy_aromatics": 0.12}
+    assert t50(mix(**heavy))[0] > plain + 2.0
+
+
 def test_cetane_is_linear_by_volume_for_diesel():
-    # domain notes §8: cetane near-linear by volume (no ignition improvers)
+    # cetane near-linear by volume without ignition improvers (from memory)
     fractions = dict(diesel_paraffins=0.5, diesel_naphthenes=0.25, diesel_aromatics=0.2, fame=0.05)
     props = blend_properties(mix(**fractions), "diesel")
     expected = sum(v * COMPONENTS[k].cetane for k, v in fractions.items())

@@ -12,15 +12,15 @@ from seed_demo.synthetic import generate_population, reference_noise, reference_
 
 def test_pls_rmsecv_for_ron_is_a_few_tenths():
     # Published mid-IR/NIR PLS octane models reach SEV ≈ 0.4–0.5 over ~200
-    # fuels (Cooper et al., Anal. Chem. 67:4096, 1995; domain notes §1); the
-    # brief asks for a few tenths (0.15–0.8) on 400 spectra. Reference values
+    # fuels (Cooper et al., Anal. Chem. 67:4096, 1995), so a few tenths
+    # (0.15–0.8) is asked of 400 synthetic spectra. Reference values
     # carry between-laboratory noise (σ = R/2.77, ASTM D2699 R ≈ 0.7, from memory).
     pop = generate_population(400, seed=31)
     true_ron = pop.properties["RON"].to_numpy()
     y = reference_noise("RON", true_ron, np.random.default_rng(32), between_labs=True)
     folds = KFold(n_splits=10, shuffle=True, random_state=0)
     rmsecv = {}
-    with threadpool_limits(1):  # shared 2-core machines (library notes)
+    with threadpool_limits(1):  # BLAS threads capped in CV loops (threadpoolctl docs)
         for a in (4, 8, 12, 16):
             pred = cross_val_predict(PLSRegression(n_components=a, scale=False),
                                      pop.spectra, y, cv=folds).ravel()
@@ -29,7 +29,7 @@ def test_pls_rmsecv_for_ron_is_a_few_tenths():
     print(f"RMSECV(RON) by components: {rmsecv}; best A={best}: {rmsecv[best]:.3f}")
     assert 0.15 <= rmsecv[best] <= 0.8
     # the model error is floored by the reference method's own scatter
-    # (domain notes §1): it cannot beat σ of the reference values by much
+    # (ASTM E1655, from memory): it cannot beat σ of the reference values by much
     sigma_ref = reference_sigma("RON", true_ron, between_labs=True).mean()
     assert rmsecv[best] > 0.9 * sigma_ref
     # and too few latent variables underfit (RMSECV falls as A grows to ~12)
@@ -37,14 +37,14 @@ def test_pls_rmsecv_for_ron_is_a_few_tenths():
 
 
 def _q_residuals(pca, x):
-    # Q = ‖x − x̂‖², the spectral residual of domain notes §4
+    # Q = ‖x − x̂‖², the spectral residual (Jackson & Mudholkar, Technometrics 21:341, 1979)
     scores = pca.transform(x)
     return np.sum((x - pca.inverse_transform(scores)) ** 2, axis=1)
 
 
 @pytest.mark.parametrize("share", [0.03, 0.08])
 def test_new_blend_component_falls_outside_the_calibration_space(share):
-    # domain notes §4: an unknown whose spectral residual exceeds the
+    # ASTM E1655 (from memory): an unknown whose spectral residual exceeds the
     # calibration residuals is outside the model space; limit used here is the
     # calibration's 99th Q percentile (common practice)
     cal = generate_population(300, seed=41)

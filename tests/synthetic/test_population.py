@@ -43,8 +43,8 @@ def test_population_shapes_and_columns(gasoline, diesel):
 
 
 def test_gasoline_properties_in_market_ranges(gasoline):
-    # ranges of the brief; EN 228 density 720–775 kg/m³ (from memory) is a
-    # superset of the 0.72–0.78 asked
+    # market ranges (common practice); EN 228 density 720–775 kg/m³ (from
+    # memory) lies inside the 0.72–0.78 asked
     p = gasoline.properties
     assert p["RON"].between(88, 101).all()
     assert p["MON"].between(80, 90).all()
@@ -53,8 +53,26 @@ def test_gasoline_properties_in_market_ranges(gasoline):
     # RON ≥ MON for every real gasoline (sensitivity ≥ 0; common practice)
     assert (p["RON"] > p["MON"]).all()
     # benzene ≤ 1 vol % is the EN 228 limit (from memory); the demo lets
-    # regular grades run slightly over, to span the D6277 range 0.1–5 vol % (§2)
+    # regular grades run slightly over, to span ASTM D6277's range 0.1–5 vol % (from memory)
     assert p["BENZENE"].between(0.1, 5.0).all()
+
+
+def test_gasoline_t50_lies_in_the_market_range(gasoline):
+    # T50 of market gasolines is about 85–105 °C (common practice; ASTM D4814 allows
+    # 77–121 °C by volatility class, 66 °C minimum for ethanol blends, from memory)
+    t = gasoline.properties["T50"].to_numpy()
+    lo, hi = np.percentile(t, [5, 95])
+    assert 85.0 <= lo and hi <= 105.0, (lo, hi)
+    assert t.min() >= 80.0 and t.max() <= 110.0
+    # the new heavy-aromatic stream shifts T50 up but keeps it inside the D4814 span
+    heavy = generate_population(400, grade="premium", seed=23, new_component_share=0.12)
+    assert heavy.properties["T50"].median() > np.median(t)
+    assert heavy.properties["T50"].between(80.0, 121.0).all()
+
+
+def test_diesel_t50_lies_in_the_middle_distillate_range(diesel):
+    # diesel T50 is typically about 250–300 °C (common practice, from memory)
+    assert diesel.properties["T50"].between(250.0, 300.0).all()
 
 
 def test_seasons_and_grades_shape_the_properties(gasoline):
@@ -73,7 +91,7 @@ def test_seasons_and_grades_shape_the_properties(gasoline):
 
 def test_diesel_properties_in_market_ranges(diesel):
     p = diesel.properties
-    # brief's ranges; EN 590 density 820–845 kg/m³ (from memory)
+    # market ranges (common practice); EN 590 density 820–845 kg/m³ (from memory)
     assert p["DENSITY"].between(0.82, 0.85).all()
     assert p["CN"].between(45, 56).all()
     b0 = diesel.grade == "B0"

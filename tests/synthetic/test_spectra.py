@@ -13,7 +13,8 @@ QUIET = dict(noise_sd=0.0, offset_sd=0.0, slope_sd=0.0, multiplicative_sd=0.0)
 
 
 def test_default_axis_is_the_mid_ir_range_on_a_2_cm_grid():
-    # domain notes §7: 4000–650 cm⁻¹; brief: ~2 cm⁻¹ grid, ascending float64
+    # 4000–650 cm⁻¹, the usual mid-IR range (common practice); the demo's 2 cm⁻¹ grid,
+    # ascending float64, as generate_population documents
     axis = default_axis()
     assert axis.dtype == np.float64 and axis.ndim == 1
     assert axis[0] == 650.0 and axis[-1] == 4000.0
@@ -80,9 +81,9 @@ def test_two_analyzers_differ_by_their_path_length_ratio_in_band_area():
 
 
 def test_absorbance_stays_in_the_linear_range():
-    # neat fuel in 25–100 µm cells (domain notes §7): typical CH-stretch
+    # neat fuel in 25–100 µm cells (common practice): typical CH-stretch
     # maxima below 1.5 at the 50 µm default, everything below 2 even at 100 µm
-    # (linear-range limits of the brief; common practice)
+    # (where Beer–Lambert stays linear; common practice)
     gasoline = generate_population(500, seed=1)
     ch = (gasoline.axis >= 2800) & (gasoline.axis <= 3000)
     assert np.percentile(gasoline.spectra[:, ch].max(axis=1), 95) < 1.5

@@ -149,7 +149,7 @@ def test_qc_page_draws_three_charts_with_limits_from_the_moving_range(ui_reg):
     values = np.array(doc["chart"]["value"])
     result = specs[0]["data"][0]
     np.testing.assert_allclose(array(result["y"]), values)
-    # ASTM D6299 / NIST e-Handbook individuals chart (domain notes §6): limits at
+    # ASTM D6299 / NIST/SEMATECH e-Handbook §6.3.2.2 individuals chart: limits at
     # x̄ ± 3·MR̄/d₂ with d₂ = 1.128 for moving ranges of span 2, baseline = all 20 results here
     mr_bar = np.mean(np.abs(np.diff(values)))
     upper = next(t for t in specs[0]["data"] if t["name"] == "upper limit")

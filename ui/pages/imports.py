@@ -78,7 +78,7 @@ else:
                 summary = call(references.import_references, safe_name(ref_file.name), text=text)
                 if summary is not FAILED:
                     st.success(f"{summary.imported} results imported; {summary.suspect} marked suspect "
-                               f"(repeats further apart than the method's repeatability); "
+                               f"(range of repeats beyond the ISO 5725-6 critical range for their number); "
                                f"{summary.linked_to_selection} answer a selection run.")
 
 st.subheader("Suspect reference results")
