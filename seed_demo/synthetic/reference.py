@@ -13,9 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from registry.errors import InputError
-
-#: r, R ≈ 2.77·s (domain notes §2; 2.77 ≈ 1.96·√2).
-PRECISION_FACTOR = 2.77
+from registry.precision import sd_from_limit
 
 
 @dataclass(frozen=True)
@@ -75,7 +73,8 @@ def reference_sigma(property_code: str, values, between_labs: bool = False) -> n
     if not np.isfinite(arr).all():
         raise InputError(f"{property_code} values must be finite", field=property_code)
     limit = PRECISIONS[property_code].limit(arr, between_labs)
-    return np.maximum(limit, 0.0) / PRECISION_FACTOR
+    # one definition of r, R = 2.77·σ (ISO 5725-6) for the generator and the acceptance rule
+    return np.maximum(limit, 0.0) * sd_from_limit(1.0)
 
 
 def reference_noise(property_code: str, values, rng: np.random.Generator,
