@@ -27,6 +27,7 @@ the SEP and ``sep`` held the RMSEP. :func:`statistics_from_json` reads both.
 
 from __future__ import annotations
 
+import math
 from dataclasses import asdict, dataclass, fields
 
 import numpy as np
@@ -40,7 +41,7 @@ from registry.precision import LIMIT_FACTOR, sd_from_limit
 STATISTICS_LAYOUT = 2
 
 #: Two-sided 95 % quantile of the normal distribution, as used in LIMIT_FACTOR = 1.96·√2.
-Z_95 = LIMIT_FACTOR / np.sqrt(2.0)
+Z_95 = LIMIT_FACTOR / math.sqrt(2.0)
 
 
 @dataclass(frozen=True)
@@ -83,13 +84,17 @@ class ValidationStatistics:
                 "sep_over_sigma_r": self.sep_over_sigma_r, "sep_95": self.sep_95}
 
 
-def statistics_from_json(doc: dict) -> ValidationStatistics:
-    """Read stored statistics of either layout (see the module docstring)."""
-    d = dict(doc)
+def _current_layout(doc: dict) -> dict:
+    d = dict(doc or {})
     if d.get("layout") is None and "sdv" in d:  # layout 1: sdv was the SEP, sep the RMSEP
         d["sep"] = d.pop("sdv")
+    return d
+
+
+def statistics_from_json(doc: dict) -> ValidationStatistics:
+    """Read stored statistics of either layout (see the module docstring)."""
     names = {f.name for f in fields(ValidationStatistics)}
-    return ValidationStatistics(**{k: v for k, v in d.items() if k in names})
+    return ValidationStatistics(**{k: v for k, v in _current_layout(doc).items() if k in names})
 
 
 def validation_statistics(y_ref, y_pred, n_components: int | None = None,
@@ -216,10 +221,14 @@ def precision_summary(statistics: dict, criteria: dict) -> dict:
 
     SEP, RMSEP and bias; R, σ_R, SEP/σ_R and 1.96·SEP; and the rule in words.
     """
-    s = statistics_from_json(statistics)
-    return {"sep": s.sep, "rmsep": s.rmsep, "bias": s.bias, "reproducibility": s.reproducibility,
-            "sigma_R": s.sigma_R, "sep_over_sigma_r": s.sep_over_sigma_r, "sep_95": s.sep_95,
-            "rule": criteria.get("rule") or rule_text(criteria)}
+    d = _current_layout(statistics)  # read key by key: a damaged record still shows what it has
+    sep, R = d.get("sep"), d.get("reproducibility")
+    sigma_R = sd_from_limit(R) if R else None
+    return {"sep": sep, "rmsep": d.get("rmsep"), "bias": d.get("bias"), "reproducibility": R,
+            "sigma_R": sigma_R,
+            "sep_over_sigma_r": sep / sigma_R if sep is not None and sigma_R else None,
+            "sep_95": Z_95 * sep if sep is not None else None,
+            "rule": (criteria or {}).get("rule") or rule_text(criteria or {})}
 
 
 def precision_text(summary: dict) -> str:

@@ -98,9 +98,9 @@ def test_acceptance_compares_sep_with_sigma_r_not_with_r(diabetes_predictions):
     R = 1.96 * np.sqrt(2.0) * sigma_r_at_boundary
     assert s.rmsep <= R                         # the old rule "RMSEP ≤ 1.0·R" passed it
     at = _with_reproducibility(s, R)
-    assert at.sep_over_sigma_r == pytest.approx(1.5, rel=1e-12)
     passed, reasons = verdict(at)
     assert not passed and any("σ_R" in r and "1.5" in r for r in reasons)
+    assert at.sep_over_sigma_r == pytest.approx(1.5, rel=1e-12)
     # just inside the limit it passes, and the factor is configurable
     assert verdict(_with_reproducibility(s, 1.96 * np.sqrt(2.0) * s.sep / 0.999))[0]
     assert verdict(at, AcceptanceCriteria(max_sep_over_sigma_r=1.6))[0]

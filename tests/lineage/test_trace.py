@@ -200,6 +200,12 @@ def test_text_tree_lists_the_chain(prediction_doc):
         assert f"sample {mem['sample']['external_id']} (" in text
     assert f"corrects #{info['corrected_from']}" in text
     assert "approved as reviewer" in text and "QC SIGNAL OPEN" in text
+    # the validation says which acceptance rule judged it and shows SEP/σ_R and 1.96·SEP vs R
+    # (R = 2.77·σ_R, ISO 5725-6); the HTML table carries the same rule
+    [v] = doc["model"]["validations"]
+    assert f"rule: {v['rule']}" in text and "σ_R = R/2.77" in v["rule"]
+    assert "SEP/σ_R=" in text and "1.96·SEP=" in text and "vs R=" in text
+    assert v["rule"] in render_html(doc).replace("&#x27;", "'")
 
 
 def test_trace_reports_altered_content(lineage_sqlite):
