@@ -4,6 +4,7 @@ import numpy as np
 import pytest
 
 from registry.errors import InputError
+from registry.precision import limit_from_sd
 from seed_demo.synthetic import reference_noise, reference_sigma
 
 
@@ -27,9 +28,11 @@ def test_cetane_reproducibility_is_linear_between_48_and_52():
     # ASTM D613: R = 3.8 at CN 48 and 4.3 at CN 52, linear between (domain notes §2, read)
     cn = np.array([48.0, 49.0, 50.0, 52.0])
     expected_R = np.interp(cn, [48.0, 52.0], [3.8, 4.3])
-    np.testing.assert_allclose(reference_sigma("CN", cn, between_labs=True) * 2.77, expected_R)
+    # R = 1.96·√2·σ_R (ISO 5725-6), the generator's one definition
+    np.testing.assert_allclose(reference_sigma("CN", cn, between_labs=True) * limit_from_sd(1.0),
+                               expected_R)
     # repeatability 0.8–0.9 over that span (domain notes §2, from memory)
-    r = reference_sigma("CN", cn) * 2.77
+    r = reference_sigma("CN", cn) * limit_from_sd(1.0)
     assert ((r >= 0.8 - 1e-12) & (r <= 0.9 + 1e-12)).all()
 
 
