@@ -32,8 +32,8 @@ from typing import Callable
 import numpy as np
 
 from registry.clock import frozen_at
-from registry.services import (admin, calibration, intake, lifecycle, models, predictions, qc,
-                               references, revalidation, selection)
+from registry.services import (admin, calibration, intake, lifecycle, models, predictions,
+                               properties, qc, references, revalidation, selection)
 from registry.services.auth import actor_of
 from registry.services.context import Actor
 from registry.spectra.formats import write_csv_spectra
@@ -66,6 +66,7 @@ ANALYZERS = {
 }
 GASOLINE_PROPERTIES = {"RON": "ASTM D2699", "MON": "ASTM D2700", "DENSITY": "ASTM D4052"}
 DIESEL_PROPERTIES = {"CN": "ASTM D613"}
+DEMO_SEP_FACTOR = 1.414  # √2: SEP ≤ √2·σ_R is 1.96·SEP ≤ R (ISO 5725-6: R = 1.96·√2·σ_R)
 QC_MATERIAL = "CONTROL-PREM-A"  # a retained premium gasoline used as control material
 
 
@@ -132,6 +133,13 @@ class _Builder:
             admin.add_grade(s, root, GASOLINE_GRADE, name="Premium gasoline 95, E0/E10",
                             family="gasoline")
             admin.add_grade(s, root, DIESEL_GRADE, name="Diesel with up to 7 % FAME", family="diesel")
+            # The labs' acceptance rule (a demo choice): a model may differ from the reference
+            # lab as much as a second laboratory would, 1.96·SEP ≤ R, i.e. SEP ≤ √2·σ_R. The
+            # reference results scatter with σ_R themselves, so the SEP cannot fall below σ_R
+            # and the default SEP ≤ 1·σ_R would fail every demo model.
+            for code in (*GASOLINE_PROPERTIES, *DIESEL_PROPERTIES):
+                properties.edit_property(s, root, code,
+                                         acceptance={"max_sep_over_sigma_r": DEMO_SEP_FACTOR})
             revalidation.set_policy(s, root, "DENSITY", GASOLINE_GRADE, 180)
             # Few diesel spectra a month: a single odd batch should not trip the drift rule.
             revalidation.set_policy(s, root, "CN", DIESEL_GRADE, 365, coverage_window_days=60,

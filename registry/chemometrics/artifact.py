@@ -147,7 +147,7 @@ class TrainedModel:
 
 def train_model(X_raw, y, axis, recipe, max_components: int = 20, folds: int = 10,
                 groups=None, n_components: int | None = None,
-                selection: str = "haaland-thomas", *, method: str = "kfold",
+                selection: str = "haaland-thomas", *, method: str = "venetian",
                 random_state=None, alpha: float = 0.75, confidence: float = 0.95,
                 residual_test: str = "q-limit", q_limit_method: str = "box",
                 metadata: dict[str, Any] | None = None) -> TrainedModel:

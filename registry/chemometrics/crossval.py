@@ -118,7 +118,7 @@ def _check_int(value: Any, name: str, low: int) -> int:
 
 
 def cross_validate_pls(X, y, max_components: int, folds: int = 10, groups=None, *,
-                       method: str = "kfold", random_state=None,
+                       method: str = "venetian", random_state=None,
                        selection: str = "haaland-thomas", alpha: float = 0.75,
                        n_components: int | None = None, preprocessor=None,
                        blas_threads: int | None = 1) -> CVResult:
@@ -133,7 +133,7 @@ def cross_validate_pls(X, y, max_components: int, folds: int = 10, groups=None, 
     folds : int, default 10
     groups : array-like of shape (n_samples,), optional
         Replicates of one physical sample share a label and a fold.
-    method : {"kfold", "venetian", "loso", "random"}
+    method : {"venetian", "kfold", "loso", "random"}, default "venetian"
         See :mod:`registry.chemometrics.folds`.
     random_state : int, optional
         Seed for ``method="random"``.

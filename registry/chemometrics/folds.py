@@ -6,10 +6,14 @@ in the same fold), otherwise the individual samples. Units are taken in order
 of first appearance in the data.
 
 methods
+    ``"venetian"``  (default) venetian blinds: unit ``j`` goes to fold ``j mod k``.
+                    Every fold spans the whole data order, so rows ordered by time or
+                    by value are interpolated, not extrapolated (common practice).
     ``"kfold"``     contiguous blocks, identical to
                     ``sklearn.model_selection.KFold(n_splits=k, shuffle=False)``
                     on the units (the first ``n_units % k`` folds get one extra).
-    ``"venetian"``  venetian blinds: unit ``j`` goes to fold ``j mod k``.
+                    On rows sorted by time or value each test block lies outside
+                    the range of its training rows, so RMSECV measures extrapolation.
     ``"loso"``      leave one sample (group) out: one unit per fold, ``k`` ignored.
     ``"random"``    identical to ``KFold(n_splits=k, shuffle=True,
                     random_state=random_state)`` on the units.
@@ -23,7 +27,7 @@ import numpy as np
 
 from registry.errors import InputError
 
-FOLD_METHODS = ("kfold", "venetian", "loso", "random")
+FOLD_METHODS = ("venetian", "kfold", "loso", "random")
 
 
 def _units(n_samples: int, groups: Any) -> tuple[np.ndarray, int]:
@@ -41,7 +45,7 @@ def _units(n_samples: int, groups: Any) -> tuple[np.ndarray, int]:
 
 
 def assign_folds(n_samples: int, folds: int = 10, groups: Any = None, *,
-                 method: str = "kfold", random_state: Any = None) -> np.ndarray:
+                 method: str = "venetian", random_state: Any = None) -> np.ndarray:
     """Fold index (0-based) of every sample.
 
     Parameters
@@ -51,9 +55,9 @@ def assign_folds(n_samples: int, folds: int = 10, groups: Any = None, *,
         Number of folds (ignored by ``"loso"``).
     groups : array-like of shape (n_samples,), optional
         Group label per sample; samples with one label share a fold.
-    method : {"kfold", "venetian", "loso", "random"}
+    method : {"venetian", "kfold", "loso", "random"}, default "venetian"
     random_state : int or None
-        Seed for ``"random"``.
+        Seed for ``"random"``; record it to reproduce the folds.
 
     Returns
     -------

@@ -163,7 +163,7 @@ def property_edit(code: str, name: Annotated[Optional[str], typer.Option("--name
                   upper: Annotated[Optional[float], typer.Option("--upper")] = None,
                   criterion: Annotated[Optional[list[str]], typer.Option(
                       "--criterion", help="NAME=VALUE acceptance override, e.g. "
-                                          "max_sep_over_reproducibility=0.8; repeat.")] = None,
+                                          "max_sep_over_sigma_r=0.8; repeat.")] = None,
                   db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Edit a property (admin)."""
     from ..services.properties import edit_property

@@ -7,6 +7,7 @@ from typing import Annotated, Optional
 
 import typer
 
+from ..chemometrics.validation import precision_summary, precision_text
 from ..services import models as svc
 from ..services import predictions as pred_svc
 from ..chemometrics.crossval import SELECTION_RULES
@@ -23,7 +24,9 @@ def model_train(calset: Annotated[str, typer.Option("--calset")],
                 recipe: Annotated[Optional[Path], typer.Option("--recipe", help="Recipe JSON file.")] = None,
                 max_components: Annotated[int, typer.Option("--max-components")] = 20,
                 cv: Annotated[int, typer.Option("--cv", help="Number of folds.")] = 10,
-                cv_method: Annotated[choice(FOLD_METHODS), typer.Option("--cv-method")] = "kfold",
+                cv_method: Annotated[choice(FOLD_METHODS), typer.Option(
+                    "--cv-method", help="venetian (default), random (seeded), kfold (contiguous "
+                                        "blocks) or loso")] = "venetian",
                 selection: Annotated[choice(SELECTION_RULES), typer.Option("--selection")] = "haaland-thomas",
                 components: Annotated[Optional[int], typer.Option("--components", help="Override the chosen size.")] = None,
                 parent: Annotated[Optional[str], typer.Option("--parent")] = None,
@@ -57,8 +60,9 @@ def model_validate(version: str,
     with transaction(db) as session:
         rec = svc.validate_model(session, login(session, as_user), version, calset_name=calset, kind=kind)
     verdict = "PASS" if rec.passed else "FAIL: " + "; ".join(rec.reasons)
-    emit(fmt, rec, f"validation of {version}: n={rec.n} RMSEP={rec.rmsep:.4g} bias={rec.bias:.4g} "
-                   f"(p={rec.bias_p:.3g}) R²={rec.r2:.4f} SEP/R={rec.sep_over_r if rec.sep_over_r is None else round(rec.sep_over_r, 3)} → {verdict}")
+    emit(fmt, rec, lambda: f"validation of {version}: n={rec.n} " + precision_text(
+        precision_summary(rec.statistics, rec.criteria))
+        + f" (bias p={rec.bias_p:.3g}) R²={rec.r2:.4f} → {verdict}")
 
 
 @model_app.command("list")
@@ -88,7 +92,7 @@ def model_show(version: str, db: DbOpt = None, as_user: AsOpt = None, fmt: Forma
                  f"  recipe: {doc['recipe']}"]
         for v in doc["validations"]:
             lines.append(f"  validation {v['id']} ({v['kind']}) {'pass' if v['passed'] else 'FAIL'}: "
-                         f"n={v['n']} RMSEP={v['rmsep']:.4g} bias={v['bias']:.4g} by {v['by']}")
+                         f"n={v['n']} {precision_text(v)} by {v['by']}")
         for h in doc["history"]:
             sig = f" [signed: {h['signature']['meaning']}]" if h["signature"] else ""
             lines.append(f"  {h['at']:%Y-%m-%d %H:%M} {h['from']} → {h['to']} by {h['by']}{sig}"

@@ -24,6 +24,7 @@ from sqlmodel import Session
 
 from ..catalog import precision_at
 from ..chemometrics.artifact import q_limit_of
+from ..chemometrics.validation import precision_summary
 from ..errors import InputError, NotFoundError
 from ..storage.models import (AuditEvent, CalibrationMember, CalibrationSet, Deployment, Grade,
                               Instrument, ModelStateChange, ModelVersion, Prediction, Property,
@@ -256,9 +257,9 @@ def _model_doc(session: Session, lk: _Lookups, mv: ModelVersion, cs: Calibration
                            "signature": sig_docs.get(h.signature_id)} for h in history],
         "signatures": list(sig_docs.values()),
         "validations": [{"id": v.id, "kind": v.kind, "calibration_set": set_names.get(
-            v.calibration_set_id), "passed": v.passed, "n": v.n, "rmsep": v.rmsep, "sep": v.sep,
-            "sdv": v.sdv, "bias": v.bias, "bias_t": v.bias_t, "bias_p": v.bias_p,
-            "slope": v.slope, "intercept": v.intercept, "r2": v.r2, "sep_over_r": v.sep_over_r,
+            v.calibration_set_id), "passed": v.passed, "n": v.n,
+            **precision_summary(v.statistics, v.criteria), "bias_t": v.bias_t, "bias_p": v.bias_p,
+            "slope": v.slope, "intercept": v.intercept, "r2": v.r2,
             "reasons": v.reasons, "by": lk.user(v.user_id), "at": _t(v.created_at),
             "sha256": v.sha256, "hash_ok": ok} for v, ok in zip(validations, val_ok)],
         "deployments": [{"id": d.id, "instrument": lk.serial(d.instrument_id), "state": d.state,

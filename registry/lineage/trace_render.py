@@ -91,10 +91,13 @@ def _model_node(m: dict) -> Node:
                             + (f" [{_signature_text(h['signature'])}]" if h["signature"] else ""), [])
                            for h in m["state_history"]]),
         ("validations", [(f"#{v['id']} {v['kind']} on {v['calibration_set']}: "
-                          f"{'PASS' if v['passed'] else 'FAIL'} n={v['n']} RMSEP={_num(v['rmsep'])} "
-                          f"bias={_num(v['bias'])} (p={_num(v['bias_p'], 3)}) R²={_num(v['r2'])} "
+                          f"{'PASS' if v['passed'] else 'FAIL'} n={v['n']} SEP={_num(v['sep'])} "
+                          f"RMSEP={_num(v['rmsep'])} bias={_num(v['bias'])} (p={_num(v['bias_p'], 3)}) "
+                          f"SEP/σ_R={_num(v['sep_over_sigma_r'], 3)} 1.96·SEP={_num(v['sep_95'])} "
+                          f"vs R={_num(v['reproducibility'])} R²={_num(v['r2'])} "
                           f"by {v['by']} at {_when(v['at'])}"
-                          + (f"; {'; '.join(v['reasons'])}" if v["reasons"] else ""), [])
+                          + (f"; {'; '.join(v['reasons'])}" if v["reasons"] else ""),
+                          [(f"rule: {v['rule']}", [])])
                          for v in m["validations"]]),
         ("deployments", [(f"{d['instrument']} {d['state']} since {_when(d['deployed_at'])} by {d['by']}"
                           + (f" until {_when(d['ended_at'])}" if d["ended_at"] else "")
@@ -320,12 +323,13 @@ def _model_html(m: dict) -> str:
                     None: '<span class="muted">not comparable</span>'}[s["parts_match_current"]]]
                   for s in m["signatures"]]) + "</details>")
     parts.append("<details open><summary>Validation records</summary>" + _table(
-        ["#", "kind", "set", "verdict", "n", "RMSEP", "SEP", "bias", "bias p", "R²", "SEP/R",
-         "by", "when", "reasons", "hash"],
+        ["#", "kind", "set", "verdict", "n", "SEP", "RMSEP", "bias", "bias p", "R²", "SEP/σ_R",
+         "1.96·SEP", "R", "acceptance rule", "by", "when", "reasons", "hash"],
         [[_e(v["id"]), _e(v["kind"]), _e(v["calibration_set"]),
           '<span class="ok">pass</span>' if v["passed"] else '<span class="bad">fail</span>',
-          _e(v["n"]), _e(v["rmsep"]), _e(v["sep"]), _e(v["bias"]), _e(v["bias_p"]), _e(v["r2"]),
-          _e(v["sep_over_r"]), _e(v["by"]), _e(_when(v["at"])), _e("; ".join(v["reasons"])),
+          _e(v["n"]), _e(v["sep"]), _e(v["rmsep"]), _e(v["bias"]), _e(v["bias_p"]), _e(v["r2"]),
+          _e(v["sep_over_sigma_r"]), _e(v["sep_95"]), _e(v["reproducibility"]), _e(v["rule"]),
+          _e(v["by"]), _e(_when(v["at"])), _e("; ".join(v["reasons"])),
           _flag(v["hash_ok"])] for v in m["validations"]]) + "</details>")
     parts.append("<details open><summary>Deployments</summary>" + _table(
         ["instrument", "state", "deployed", "ended", "by", "signature"],

@@ -13,6 +13,7 @@ from sqlmodel import Session, select
 from ..catalog import precision_at
 from ..chemometrics import AcceptanceCriteria, TrainedModel, train_model, validation_statistics, verdict
 from ..chemometrics.artifact import q_limit_of
+from ..chemometrics.validation import precision_summary
 from ..errors import InputError, NotFoundError
 from ..lifecycle.permissions import Action
 from ..lineage.content_hashes import artifact_hash, validation_record_hash
@@ -113,12 +114,15 @@ def record_state_change(session: Session, mv: ModelVersion, to_state: str, actor
 
 def train_model_version(session: Session, actor: Actor, calset_name: str, *,
                         recipe: list[dict[str, Any]] | None = None, max_components: int = 20,
-                        folds: int = 10, cv_method: str = "kfold", selection: str = "haaland-thomas",
+                        folds: int = 10, cv_method: str = "venetian", selection: str = "haaland-thomas",
                         n_components: int | None = None, parent: str | None = None,
                         random_state: int | None = 0) -> ModelVersion:
     """Train a draft model version on the calibration members of a frozen set.
 
-    Replicate spectra of one sample are kept in one cross-validation fold.
+    Replicate spectra of one sample are kept in one cross-validation fold. Folds default
+    to venetian blinds over the samples (contiguous blocks extrapolate when the set is
+    ordered by time or value); ``random_state`` seeds ``cv_method="random"`` and is
+    recorded with the CV results.
     """
     authorize(actor, Action.MODEL_TRAIN)
     cs = get_calset(session, calset_name)
@@ -144,6 +148,7 @@ def train_model_version(session: Session, actor: Actor, calset_name: str, *,
                       cv={"rmsecv": [float(v) for v in cv.rmsecv], "press": [float(v) for v in cv.press],
                           "selected_components": int(cv.selected_components),
                           "selection_rule": cv.selection_rule, "method": cv.method,
+                          "seed": random_state if cv.method == "random" else None,
                           "n_folds": int(cv.n_folds), "f_test_p": [float(v) for v in cv.f_test_p],
                           "n_spectra": int(X.shape[0]), "n_samples": int(len(set(groups.tolist())))},
                       artifact=blob, artifact_sha256=artifact_hash(blob), axis_id=axis_row.id,
@@ -215,12 +220,12 @@ def validate_model(session: Session, actor: Actor, label: str, *, calset_name: s
         criteria = acceptance_for(prop)
     passed, reasons = verdict(_with_components(stats, mv.n_components), criteria)
     rec = ValidationRecord(model_version_id=mv.id, calibration_set_id=cs.id, user_id=actor.id,
-                           kind=kind, n=stats.n, bias=stats.bias, sdv=stats.sdv, sep=stats.sep,
+                           kind=kind, n=stats.n, bias=stats.bias, sep=stats.sep,
                            rmsep=stats.rmsep, slope=stats.slope, intercept=stats.intercept,
                            r2=stats.r2, bias_t=stats.bias_t, bias_p=stats.bias_p,
-                           sep_over_r=(stats.sep / R) if R else None, passed=passed,
-                           criteria=criteria.to_json(), statistics=stats_json, reasons=reasons,
-                           sha256="")
+                           sep_over_sigma_r=stats.sep_over_sigma_r, passed=passed,
+                           criteria={**criteria.to_json(), "rule": criteria.rule_text()},
+                           statistics=stats_json, reasons=reasons, sha256="")
     session.add(rec)
     session.flush()
     rec.sha256 = validation_record_hash(rec)
@@ -237,7 +242,8 @@ def validate_model(session: Session, actor: Actor, label: str, *, calset_name: s
     session.flush()
     audit(session, actor, Action.MODEL_VALIDATE, entity_type="model_version", entity_id=mv.id,
           data={"label": mv.label, "calibration_set": cs.name, "passed": passed, "reasons": reasons,
-                "rmsep": stats.rmsep, "bias": stats.bias, "n": stats.n, "record_id": rec.id},
+                "sep": stats.sep, "rmsep": stats.rmsep, "bias": stats.bias,
+                "sep_over_sigma_r": stats.sep_over_sigma_r, "n": stats.n, "record_id": rec.id},
           hashes={"validation_record": [(rec.id, rec.sha256)]})
     return rec
 
@@ -294,8 +300,9 @@ def model_detail(session: Session, actor: Actor, label: str) -> dict:
         "parent": session.get(ModelVersion, mv.parent_id).label if mv.parent_id else None,
         "calibration_set": {"name": cs.name, "sha256": cs.sha256, "n_cal": cs.n_cal, "n_val": cs.n_val},
         "last_validated_at": mv.last_validated_at,
-        "validations": [{"id": v.id, "kind": v.kind, "passed": v.passed, "n": v.n, "rmsep": v.rmsep,
-                         "bias": v.bias, "bias_p": v.bias_p, "r2": v.r2, "sep_over_r": v.sep_over_r,
+        "validations": [{"id": v.id, "kind": v.kind, "passed": v.passed, "n": v.n,
+                         **precision_summary(v.statistics, v.criteria),
+                         "bias_p": v.bias_p, "r2": v.r2,
                          "reasons": v.reasons, "by": users.get(v.user_id), "at": v.created_at}
                         for v in validations],
         "history": [{"from": h.from_state, "to": h.to_state, "by": users.get(h.user_id),

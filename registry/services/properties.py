@@ -9,6 +9,7 @@ from typing import Any
 from sqlmodel import Session, select
 
 from ..chemometrics import AcceptanceCriteria
+from ..chemometrics.validation import LEGACY_PRECISION_KEY
 from ..errors import InputError
 from ..lifecycle.permissions import Action
 from ..storage.models import Property
@@ -24,6 +25,11 @@ def acceptance_for(prop: Property) -> AcceptanceCriteria:
 
 
 def _criteria(overrides: dict[str, Any]) -> dict[str, Any]:
+    if LEGACY_PRECISION_KEY in overrides:
+        # revision 0003 renamed it (stored overrides were migrated, same factor)
+        raise InputError(f"{LEGACY_PRECISION_KEY} compared the RMSEP with the 95 % limit R and "
+                         "is replaced by max_sep_over_sigma_r: SEP ≤ k·σ_R, σ_R = R/2.77",
+                         field="--criterion")
     unknown = sorted(set(overrides) - set(CRITERIA_FIELDS))
     if unknown:
         raise InputError(f"unknown acceptance criterion {unknown[0]!r}; known: "

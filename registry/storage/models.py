@@ -312,6 +312,15 @@ class ModelStateChange(SQLModel, table=True):
 
 
 class ValidationRecord(SQLModel, table=True):
+    """One validation: statistics, the criteria applied, the verdict.
+
+    ``sep`` is the SEP, the bias-corrected standard deviation of the errors (ISO 12099),
+    ``rmsep`` the root mean square error, ``sep_over_sigma_r`` = SEP/(R/2.77). Before
+    revision 0003 ``sep`` held the RMSEP and a ``sdv`` column the SEP; the migration moved
+    the SEP into ``sep``. The hashed ``statistics`` and ``criteria`` JSON keep the layout
+    they were written with (see ``registry.chemometrics.validation.statistics_from_json``).
+    """
+
     __tablename__ = "validation_record"
     id: Optional[int] = Field(default=None, primary_key=True)
     model_version_id: int = Field(foreign_key="model_version.id", index=True)
@@ -320,7 +329,6 @@ class ValidationRecord(SQLModel, table=True):
     kind: str = Field(default="initial", max_length=20)  # initial, local, general
     n: int
     bias: float
-    sdv: float
     sep: float
     rmsep: float
     slope: float
@@ -328,7 +336,7 @@ class ValidationRecord(SQLModel, table=True):
     r2: float
     bias_t: float
     bias_p: float
-    sep_over_r: Optional[float] = None
+    sep_over_sigma_r: Optional[float] = None
     passed: bool
     criteria: dict = _json()
     statistics: dict = _json()

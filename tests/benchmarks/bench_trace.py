@@ -41,6 +41,8 @@ from threadpoolctl import threadpool_limits
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
+from registry.chemometrics.validation import (AcceptanceCriteria,  # noqa: E402
+                                              ValidationStatistics)
 from registry.lifecycle.signatures import signed_content_hash  # noqa: E402
 from registry.lineage.audit_chain import GENESIS, link_hash  # noqa: E402
 from registry.lineage.canonical import canonical_json  # noqa: E402
@@ -212,6 +214,9 @@ def build(url: str) -> dict:
         # calibration sets, models, validations, signatures, deployments ----------------------
         sets, members, models, changes, validations, sigs, deps = [], [], [], [], [], [], []
         when = T0 + timedelta(days=40)
+        stats = ValidationStatistics(n=30, bias=0.01, sep=0.4, rmsep=0.4, slope=1.0, intercept=0.0,
+                                     r2=0.97, bias_t=0.1, bias_p=0.9, reproducibility=0.7)
+        criteria = AcceptanceCriteria(max_sep_over_sigma_r=2.0)
         for m in range(1, N_MODELS + 1):
             chosen = sorted(int(v) for v in rng.choice(referenced, SET_SIZE, replace=False))
             mem = [{"set_id": m, "sample_id": sid, "role": "val" if j % 5 == 0 else "cal",
@@ -237,10 +242,11 @@ def build(url: str) -> dict:
                            "calibration_set_id": m, "state": "active", "author_id": ana.id,
                            "created_at": t_model, "last_validated_at": t_model + timedelta(hours=1)})
             val = {"id": m, "model_version_id": m, "calibration_set_id": m, "user_id": rev.id,
-                   "kind": "initial", "n": 30, "bias": 0.01, "sdv": 0.4, "sep": 0.4, "rmsep": 0.4,
+                   "kind": "initial", "n": 30, "bias": 0.01, "sep": 0.4, "rmsep": 0.4,
                    "slope": 1.0, "intercept": 0.0, "r2": 0.97, "bias_t": 0.1, "bias_p": 0.9,
-                   "sep_over_r": 0.57, "passed": True, "criteria": {"min_n": 20},
-                   "statistics": {"rmsep": 0.4}, "reasons": [],
+                   "sep_over_sigma_r": stats.sep_over_sigma_r, "passed": True,
+                   "criteria": {**criteria.to_json(), "rule": criteria.rule_text()},
+                   "statistics": stats.to_json(), "reasons": [],
                    "created_at": t_model + timedelta(hours=1)}
             val["sha256"] = validation_record_hash(SimpleNamespace(**val))
             validations.append(val)

@@ -2,7 +2,7 @@
 
 import numpy as np
 import pytest
-from hypothesis import given, settings
+from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from scipy import stats
 from sklearn.cross_decomposition import PLSRegression
@@ -33,7 +33,7 @@ def test_rmsecv_equals_sklearn_cross_val_predict(low_rank_regression):
     # source: sklearn.model_selection.cross_val_predict with KFold(10) and
     # PLSRegression(scale=False), one run per component count
     X, y = low_rank_regression
-    result = cross_validate_pls(X, y, 12, folds=10)
+    result = cross_validate_pls(X, y, 12, folds=10, method="kfold")
     expected = _sklearn_rmsecv(X, y, 12, KFold(10))
     np.testing.assert_allclose(result.rmsecv, expected, rtol=1e-9)
     np.testing.assert_allclose(result.press, expected ** 2 * len(y), rtol=1e-8)
@@ -50,7 +50,7 @@ def test_per_fold_msc_equals_sklearn_pipeline(fermentation):
               {"step": "savgol", "window_length": 15, "polyorder": 2, "deriv": 1},
               {"step": "msc"}]
     pre = Recipe.from_json(recipe).build(axis)
-    result = cross_validate_pls(X, y, 6, folds=7, preprocessor=pre)
+    result = cross_validate_pls(X, y, 6, folds=7, method="kfold", preprocessor=pre)
     mask = (axis >= 950) & (axis <= 1550)
 
     def head():
@@ -79,7 +79,7 @@ def test_grouped_kfold_is_kfold_over_groups_in_order_of_appearance():
     # source: KFold(shuffle=False) applied to the unique group labels
     groups = np.array(["c", "c", "a", "a", "a", "z", "b", "b", "d", "e", "e", "f"])
     units = ["c", "a", "z", "b", "d", "e", "f"]
-    folds = assign_folds(len(groups), 3, groups)
+    folds = assign_folds(len(groups), 3, groups, method="kfold")
     expected = {}
     for f, (_, test) in enumerate(KFold(3).split(np.zeros(len(units)))):
         expected.update({units[i]: f for i in test})
@@ -111,6 +111,41 @@ def test_replicates_never_straddle_folds(labels, method, k, seed):
         assert np.unique(folds[groups == g]).size == 1
     expected_folds = n_units if method == "loso" else k
     assert np.unique(folds).size == expected_folds
+
+
+def test_default_folds_are_venetian_blinds_and_do_not_extrapolate(low_rank_regression):
+    # Rows sorted by y (as a set ordered by time or by value is): contiguous blocks hold
+    # out the ends of the range, so each test block is an extrapolation. Reference: the
+    # RMSECV of scikit-learn cross_val_predict(PLSRegression(scale=False)) with shuffled
+    # KFold (five seeds), which does not depend on the row order. Venetian blinds
+    # (unit j -> fold j mod k; common practice) must agree with it, contiguous blocks not.
+    X, y = low_rank_regression
+    order = np.argsort(y)
+    X, y = X[order], y[order]
+    A, k = 8, 5
+    shuffled = np.mean([
+        np.sqrt(np.mean((y - cross_val_predict(PLSRegression(A, scale=False), X, y,
+                                               cv=KFold(k, shuffle=True, random_state=seed)).ravel()) ** 2))
+        for seed in range(5)])
+    default = cross_validate_pls(X, y, A, folds=k)
+    contiguous = cross_validate_pls(X, y, A, folds=k, method="kfold")
+    assert default.method == "venetian"
+    np.testing.assert_array_equal(default.fold_of_sample, np.arange(len(y)) % k)
+    assert default.rmsecv[A - 1] == pytest.approx(shuffled, rel=0.10)
+    assert contiguous.rmsecv[A - 1] > 1.25 * default.rmsecv[A - 1]
+
+
+@settings(max_examples=60, deadline=None)
+@given(labels=st.lists(st.integers(0, 12), min_size=4, max_size=60), k=st.integers(2, 4))
+def test_default_folds_keep_replicates_together(labels, k):
+    # source: requirement that replicate spectra of one sample share a fold; with the
+    # default method, units (samples) in order of first appearance go to fold j mod k
+    groups = np.array(labels)
+    units = list(dict.fromkeys(labels))
+    assume(k <= len(units))
+    folds = assign_folds(len(groups), k, groups)
+    for j, g in enumerate(units):
+        assert set(folds[groups == g].tolist()) == {j % k}
 
 
 def test_haaland_thomas_rule():

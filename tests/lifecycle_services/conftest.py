@@ -23,7 +23,8 @@ from registry.services.context import Actor
 from registry.storage.engine import make_engine, session_scope, upgrade
 from registry.storage.models import ENTITY_TABLES
 from tests.conftest import PASSWORD, populate_basics
-from tests.factories import copy_sqlite, referenced_registry, trained_ron_version
+from tests.factories import (accept_small_test_models, copy_sqlite, referenced_registry,
+                             trained_ron_version)
 
 SECOND_SITE_ZONE = "America/Chicago"
 
@@ -57,6 +58,7 @@ def build_registry(url: str, base: Path) -> dict:
         admin.add_site(s, root, "River Lab", timezone=SECOND_SITE_ZONE)
         admin.add_instrument(s, root, "IR-200", site="River Lab")
     info = referenced_registry(engine, actors, base, n=80)
+    accept_small_test_models(engine, actors)
     v1 = trained_ron_version(engine, actors)
     v2 = trained_ron_version(engine, actors, author="dual", new_set=False)
     for label, who in ((v1, "reviewer"), (v2, "dual")):

@@ -26,7 +26,7 @@ from registry.storage.models import Instrument, QCResult, RevalidationTrigger
 from registry.storage.types import utcnow
 from seed_demo.synthetic import generate_population, reference_noise
 from tests.conftest import PASSWORD, fresh_pg_database, populate_basics
-from tests.factories import write_population_csv, write_reference_csv
+from tests.factories import accept_small_test_models, write_population_csv, write_reference_csv
 
 N_SAMPLES = 80  # a 25 % Duplex split leaves the 20 validation samples a pass needs
 N_PICKED = 10
@@ -55,6 +55,7 @@ def build_lineage_registry(url: str, tmp: Path) -> dict:
         corrected = references.correct_reference(s, actors["analyst"], first_result,
                                                  round(float(ron[3]) + 0.1, 3), "transcription")
         corrected_id = corrected.id
+    accept_small_test_models(engine, actors)
     with session_scope(engine) as s:
         cs = calibration.create_calibration_set(s, actors["lab_manager"], "RON-T",
                                                 property_code="RON", grade_code="PREM95",

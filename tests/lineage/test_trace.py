@@ -205,6 +205,12 @@ def test_text_tree_lists_the_chain(prediction_doc):
     assert "Q-residual limit: Box g·χ²(h) at 99 %" in text
     assert "scaled for fitted degrees of freedom" in text
     assert "Q-residual limit" in render_html(doc)
+    # the validation says which acceptance rule judged it and shows SEP/σ_R and 1.96·SEP vs R
+    # (R = 2.77·σ_R, ISO 5725-6); the HTML table carries the same rule
+    [v] = doc["model"]["validations"]
+    assert f"rule: {v['rule']}" in text and "σ_R = R/2.77" in v["rule"]
+    assert "SEP/σ_R=" in text and "1.96·SEP=" in text and "vs R=" in text
+    assert v["rule"] in render_html(doc).replace("&#x27;", "'")
 
 
 def test_trace_reports_altered_content(lineage_sqlite):

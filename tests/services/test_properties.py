@@ -20,6 +20,11 @@ def test_only_admin_edits_and_bad_criteria_are_refused(registry):
     with pytest.raises(InputError, match="unknown acceptance criterion"):
         with session_scope(engine) as s:
             edit_property(s, actors["admin"], "RON", acceptance={"max_rmsep": 1})
+    # the rule before revision 0003 compared the RMSEP with R; its name is refused with the
+    # new one (stored overrides were migrated by 0003)
+    with pytest.raises(InputError, match="max_sep_over_sigma_r"):
+        with session_scope(engine) as s:
+            edit_property(s, actors["admin"], "RON", acceptance={"max_sep_over_reproducibility": 1})
     with pytest.raises(InputError, match="below upper"):
         with session_scope(engine) as s:
             edit_property(s, actors["admin"], "RON", lower_limit=130)
@@ -48,3 +53,8 @@ def test_stricter_criteria_turn_a_pass_into_a_fail(registry, tmp_path):
     assert second.rmsep == pytest.approx(first.rmsep)
     assert not second.passed and any("R²" in r or "r2" in r.lower() for r in second.reasons)
     assert second.criteria["min_r2"] == 0.99999
+    # the record states the rule it was judged by: SEP against σ_R = R/2.77 (ISO 5725-6)
+    assert "SEP ≤ 1·σ_R, σ_R = R/2.77" in second.criteria["rule"] and "R² ≥ 0.99999" in \
+        second.criteria["rule"]
+    R = second.statistics["reproducibility"]
+    assert second.sep_over_sigma_r == pytest.approx(second.sep * 1.96 * 2 ** 0.5 / R)

@@ -19,7 +19,8 @@ import pytest
 from registry.services import lifecycle, models, predictions, qc
 from registry.storage.engine import dispose_engines, make_engine, session_scope, upgrade
 from tests.conftest import PASSWORD, ROLE_USERS, populate_basics
-from tests.factories import copy_sqlite, referenced_registry, trained_ron_version
+from tests.factories import (accept_small_test_models, copy_sqlite, referenced_registry,
+                             trained_ron_version)
 
 N_REFERENCED = 80
 N_UNREFERENCED = 40
@@ -43,6 +44,7 @@ def _build(base: Path) -> dict:
     engine = make_engine(url)
     actors = populate_basics(engine)
     info = referenced_registry(engine, actors, base, n=N_REFERENCED, n_unreferenced=N_UNREFERENCED)
+    accept_small_test_models(engine, actors)
     label = trained_ron_version(engine, actors)
     with session_scope(engine) as s:
         assert models.validate_model(s, actors["reviewer"], label).passed

@@ -76,6 +76,16 @@ def test_models_page_lists_the_model_and_draws_its_cv_curve(ui_reg):
     # an auditor changes nothing: no lifecycle form is offered
     assert not at.form_submit_button
     assert "active" in frame(at, "signature")["to"].tolist()
+    # the validation record shows SEP, RMSEP and bias apart, SEP/σ_R, 1.96·SEP against R
+    # and the acceptance rule that judged it (R = 2.77·σ_R, ISO 5725-6)
+    validations = frame(at, "acceptance rule")
+    [v] = detail["validations"]
+    row = validations.iloc[0]
+    assert row["acceptance rule"] == v["rule"] and "σ_R = R/2.77" in v["rule"]
+    assert row["SEP"] == pytest.approx(v["sep"], abs=1e-4)
+    assert row["RMSEP"] == pytest.approx(v["rmsep"], abs=1e-4)
+    assert row["SEP/σ_R"] == pytest.approx(v["sep"] / (row["R"] / 2.772), abs=2e-3)
+    assert row["1.96·SEP"] == pytest.approx(1.96 * v["sep"], abs=1e-4)
 
 
 def test_a_signature_action_asks_for_the_password_again(ui_reg):

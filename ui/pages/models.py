@@ -70,12 +70,21 @@ if rmsecv:
 
 st.markdown("**Validation records**")
 if d["validations"]:
+    def _r(value, digits=4):
+        return None if value is None else round(value, digits)
+
     st.dataframe(pd.DataFrame([{
         "id": v["id"], "kind": v["kind"], "passed": v["passed"], "n": v["n"],
-        "RMSEP": round(v["rmsep"], 4), "bias": round(v["bias"], 4), "bias p": round(v["bias_p"], 4),
-        "R²": round(v["r2"], 4), "SEP/R": None if v["sep_over_r"] is None else round(v["sep_over_r"], 3),
-        "by": v["by"], "at (UTC)": when(v["at"]), "reasons": "; ".join(v["reasons"] or [])}
+        "SEP": _r(v["sep"]), "RMSEP": _r(v["rmsep"]), "bias": _r(v["bias"]),
+        "bias p": _r(v["bias_p"]), "R²": _r(v["r2"]), "SEP/σ_R": _r(v["sep_over_sigma_r"], 3),
+        "1.96·SEP": _r(v["sep_95"]), "R": _r(v["reproducibility"]),
+        "acceptance rule": v["rule"], "by": v["by"], "at (UTC)": when(v["at"]),
+        "reasons": "; ".join(v["reasons"] or [])}
         for v in d["validations"]]), hide_index=True, key="models_validations")
+    st.caption("SEP: bias-corrected standard deviation of the prediction errors (ISO 12099); "
+               "RMSEP: their root mean square. R is a 95 % limit on the difference of two "
+               "results, R = 2.77·σ_R (ISO 5725-6), so SEP is compared with σ_R and 1.96·SEP "
+               "with R.")
 else:
     st.write("Not validated yet.")
 
