@@ -13,7 +13,7 @@ from ..errors import InputError
 from ..services import selection as svc
 from ..services import selection_runs as runs
 from ..services.models import read_recipe
-from ..services.timeparse import parse_time
+from ..timeparse import parse_time
 from .common import AsOpt, DbOpt, FormatOpt, emit, handle_errors, login, table, transaction
 
 selection_app = typer.Typer(help="Stored selection runs (send lists).", no_args_is_help=True)

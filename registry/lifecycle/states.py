@@ -1,5 +1,10 @@
 """Lifecycle states of a model version and the legal moves between them.
 
+This module is the one place that spells a state: everything else names the
+members of :class:`ModelState` (and :class:`DeploymentState`), and the next
+state of a move is always read from :data:`TRANSITIONS` (via
+:func:`check_transition`), never written down by the caller.
+
 The table here only says which moves are legal; the services decide *whether*
 to make one (for example, a failing validation records its result and leaves
 the version in ``draft`` by simply not asking for the ``validate`` move).
@@ -87,11 +92,29 @@ del S, A
 TERMINAL_STATES: frozenset[ModelState] = frozenset(
     {ModelState.RETIRED, ModelState.SUPERSEDED, ModelState.REJECTED})
 
+#: Versions in service: they predict in routine use and fall due for revalidation.
+IN_SERVICE_STATES: frozenset[ModelState] = frozenset({ModelState.APPROVED, ModelState.ACTIVE})
+
+#: Versions that passed validation and are neither held by a reviewer nor ended: their
+#: calibration space is the one to show and to select new samples against.
+USABLE_STATES: frozenset[ModelState] = frozenset(
+    {ModelState.VALIDATED, ModelState.APPROVED, ModelState.ACTIVE})
+
+
+class DeploymentState(StrEnum):
+    """State of one deployment of a version on one instrument."""
+
+    ACTIVE = "active"
+    SUPERSEDED = "superseded"  # another version was activated there
+    RETIRED = "retired"  # taken out of service there
+
+
 #: Actions only the registry itself performs, never a user.
 SYSTEM_ACTIONS: frozenset[LifecycleAction] = frozenset({LifecycleAction.SUPERSEDE})
 
 
-def _as_state(state: ModelState | str) -> ModelState:
+def as_state(state: ModelState | str) -> ModelState:
+    """``state`` as a :class:`ModelState`; InputError (field ``state``) for an unknown name."""
     try:
         return ModelState(state)
     except ValueError:
@@ -113,7 +136,7 @@ def allowed_actions(state: ModelState | str, *, include_system: bool = False) ->
     System actions (``supersede``) are left out unless ``include_system`` is true,
     because users cannot perform them.
     """
-    state = _as_state(state)
+    state = as_state(state)
     return [action for action in LifecycleAction
             if (state, action) in TRANSITIONS
             and (include_system or action not in SYSTEM_ACTIONS)]
@@ -121,7 +144,7 @@ def allowed_actions(state: ModelState | str, *, include_system: bool = False) ->
 
 def is_terminal(state: ModelState | str) -> bool:
     """True if no action can leave ``state``."""
-    return _as_state(state) in TERMINAL_STATES
+    return as_state(state) in TERMINAL_STATES
 
 
 def check_transition(state: ModelState | str, action: LifecycleAction | str, *,
@@ -151,7 +174,7 @@ def check_transition(state: ModelState | str, action: LifecycleAction | str, *,
     InputError
         ``state`` or ``action`` is not a known value.
     """
-    state = _as_state(state)
+    state = as_state(state)
     action = _as_action(action)
     new_state = TRANSITIONS.get((state, action))
     if new_state is not None:

@@ -25,11 +25,13 @@ from sqlmodel import Session
 
 from ..catalog import precision_at
 from ..errors import InputError, NotFoundError
+from ..storage.lookups import get_model
 from ..storage.models import (AuditEvent, CalibrationMember, CalibrationSet, Deployment, Grade,
                               Instrument, ModelStateChange, ModelVersion, Prediction, Property,
                               QCResult, ReferenceMethod, ReferenceResult, RevalidationTrigger,
                               Sample, SelectionPick, SelectionRun, Signature, Site, SpectralAxis,
                               Spectrum, User, ValidationRecord)
+from ..storage.revalidation_store import due_status_of, policy_for
 from ..storage.types import as_utc, utcnow
 from .content_hashes import (artifact_hash, calibration_set_hash, reference_result_hash,
                              signature_hash, spectrum_hash, validation_record_hash)
@@ -307,9 +309,7 @@ def _qc_at(session: Session, lk: _Lookups, mv: ModelVersion, at: datetime,
 
 
 def _due(session: Session, mv: ModelVersion, now: datetime) -> dict:
-    from ..services.due import model_due_status, policy_for
-
-    status = model_due_status(session, mv, now)
+    status = due_status_of(session, mv, now)
     interval = policy_for(session, mv).interval_days
     if status is None:
         return {"applies": False, "interval_days": interval, "due_at": None, "days_left": None,
@@ -576,8 +576,6 @@ def build_trace(session: Session, *, prediction_id: int | None = None, sample: s
         else:
             doc["sample"] = _sample_doc(lk, srow)
     else:
-        from ..services.models import get_model
-
         mv = get_model(session, str(model))
         doc["root"] = {"kind": "model", "model": mv.label}
         cs = session.get(CalibrationSet, mv.calibration_set_id)

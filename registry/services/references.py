@@ -22,10 +22,10 @@ from ..catalog import precision_at
 from ..errors import InputError, NotFoundError
 from ..lifecycle.permissions import Action
 from ..lineage.content_hashes import reference_result_hash
-from ..storage.models import (Property, ReferenceMethod, ReferenceResult, Sample, SelectionPick,
-                              SelectionRun, Site)
+from ..storage.models import (Property, ReferenceMethod, ReferenceResult, ResultStatus, Sample,
+                              SelectionPick, SelectionRun, Site)
+from ..timeparse import parse_time
 from .context import Actor, audit, authorize
-from .timeparse import parse_time
 
 REQUIRED_COLUMNS = ("sample_id", "property", "method", "value", "unit", "lab", "tested_at")
 OPTIONAL_COLUMNS = ("operator", "comment")
@@ -156,7 +156,7 @@ def import_references(session: Session, actor: Actor, path: str | Path, *,
         duplicate = key in seen or session.exec(select(ReferenceResult.id).where(
             ReferenceResult.sample_id == sample.id, ReferenceResult.method_id == method.id,
             ReferenceResult.lab == cells["lab"], ReferenceResult.tested_at == tested_at,
-            ReferenceResult.status != "superseded")).first() is not None
+            ReferenceResult.status != ResultStatus.SUPERSEDED)).first() is not None
         if duplicate:
             bad("duplicate result: same sample, method, lab and test time already "
                 "imported", line, None)
@@ -228,7 +228,7 @@ def _check_repeats(session: Session, sample_id: int, method_id: int) -> int:
     method = session.get(ReferenceMethod, method_id)
     rows = session.exec(select(ReferenceResult).where(
         ReferenceResult.sample_id == sample_id, ReferenceResult.method_id == method_id,
-        ReferenceResult.status.in_(["valid", "suspect"]))).all()
+        ReferenceResult.status.in_([ResultStatus.VALID, ResultStatus.SUSPECT]))).all()
     if len(rows) < 2:
         return 0
     values = [r.value for r in rows]
@@ -239,8 +239,8 @@ def _check_repeats(session: Session, sample_id: int, method_id: int) -> int:
     marked = 0
     if max(values) - min(values) > r_limit:
         for r in rows:
-            if r.status == "valid":
-                r.status = "suspect"
+            if r.status == ResultStatus.VALID:
+                r.status = ResultStatus.SUSPECT
                 r.status_reason = (f"suspect — exceeds r: repeats range {max(values) - min(values):.4g} "
                                    f"> r = {r_limit:.4g} at level {level:.4g} ({method.code})")
                 session.add(r)
@@ -256,13 +256,13 @@ def resolve_suspect(session: Session, actor: Actor, result_id: int, decision: st
     rr = session.get(ReferenceResult, result_id)
     if rr is None:
         raise NotFoundError(f"no reference result {result_id}")
-    if rr.status != "suspect":
+    if rr.status != ResultStatus.SUSPECT:
         raise InputError(f"reference result {result_id} is {rr.status}, not suspect", field="ID")
     if decision not in ("accept", "reject"):
         raise InputError("decision must be accept or reject", field="--decision")
     if not reason.strip():
         raise InputError("a reason is required", field="--reason")
-    rr.status = "valid" if decision == "accept" else "rejected"
+    rr.status = ResultStatus.VALID if decision == "accept" else ResultStatus.REJECTED
     rr.status_reason = f"{decision}ed by {actor.name}: {reason}"
     session.add(rr)
     session.flush()
@@ -279,7 +279,7 @@ def correct_reference(session: Session, actor: Actor, result_id: int, value: flo
     old = session.get(ReferenceResult, result_id)
     if old is None:
         raise NotFoundError(f"no reference result {result_id}")
-    if old.status == "superseded":
+    if old.status == ResultStatus.SUPERSEDED:
         raise InputError(f"reference result {result_id} was already superseded", field="ID")
     if not reason.strip():
         raise InputError("a reason is required", field="--reason")
@@ -294,7 +294,7 @@ def correct_reference(session: Session, actor: Actor, result_id: int, value: flo
                           selection_pick_id=old.selection_pick_id, imported_by_id=actor.id,
                           sha256="")
     session.add(new)
-    old.status = "superseded"
+    old.status = ResultStatus.SUPERSEDED
     old.status_reason = f"superseded by correction ({reason})"
     session.add(old)
     session.flush()
@@ -319,12 +319,12 @@ def calibration_values(session: Session, sample_ids: Iterable[int], property_id:
         return out
     rows = session.exec(select(ReferenceResult).where(
         ReferenceResult.sample_id.in_(ids), ReferenceResult.method_id.in_(method_ids),
-        ReferenceResult.status.in_(["valid", "suspect"]))).all()
+        ReferenceResult.status.in_([ResultStatus.VALID, ResultStatus.SUSPECT]))).all()
     by_sample: dict[int, list[ReferenceResult]] = {}
     for r in rows:
         by_sample.setdefault(r.sample_id, []).append(r)
     for sid, rs in by_sample.items():
-        if any(r.status == "suspect" for r in rs):
+        if any(r.status == ResultStatus.SUSPECT for r in rs):
             continue
         out[sid] = (sum(r.value for r in rs) / len(rs), sorted(r.id for r in rs))
     return out
@@ -335,7 +335,7 @@ def list_references(session: Session, actor: Actor, *, status: str | None = None
                     limit: int = 500) -> list[dict]:
     """Reference results, newest first (e.g. the suspect ones a reviewer must resolve)."""
     authorize(actor, Action.VIEW)
-    if status is not None and status not in ("valid", "suspect", "rejected", "superseded"):
+    if status is not None and status not in set(ResultStatus):
         raise InputError(f"unknown status {status!r}; use valid, suspect, rejected or superseded",
                          field="--status")
     q = (select(ReferenceResult, Sample, ReferenceMethod, Property)

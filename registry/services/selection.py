@@ -46,6 +46,7 @@ from sqlmodel import Session, select
 
 from ..errors import InputError
 from ..lifecycle.permissions import Action
+from ..lifecycle.states import ModelState
 from ..lineage.canonical import content_hash
 from ..selection import (SelectionSpace, budget_positions, coverage_summary, d_optimal, duplex,
                          kennard_stone, pick_rationale)
@@ -169,7 +170,7 @@ def _tests_for(session: Session, props: list[Property]) -> list[_Test]:
 
 def current_model(session: Session, prop: Property, grade: Grade) -> ModelVersion | None:
     """Active version if any, else the newest approved/validated one, else None."""
-    for states in (("active",), ("approved", "validated")):
+    for states in ((ModelState.ACTIVE,), (ModelState.APPROVED, ModelState.VALIDATED)):
         mv = session.exec(select(ModelVersion).where(
             ModelVersion.property_id == prop.id, ModelVersion.grade_id == grade.id,
             ModelVersion.state.in_(states)).order_by(ModelVersion.id.desc())).first()

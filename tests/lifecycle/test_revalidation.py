@@ -11,7 +11,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from registry.errors import InputError
-from registry.lifecycle.revalidation import (
+from registry.lifecycle.revalidation_rules import (
     Trigger,
     TriggerKind,
     coverage_drift,
