@@ -1,4 +1,4 @@
-"""closed names: CHECK constraints on model states, deployment states, result statuses and audit actions
+"""closed names: CHECK on model and deployment states, result statuses and audit actions
 
 Revision ID: 0004
 Revises: 0002

@@ -25,6 +25,7 @@ from sqlmodel import Session
 
 from ..catalog import precision_at
 from ..errors import InputError, NotFoundError
+from ..lifecycle.permissions import Action
 from ..storage.lookups import get_model
 from ..storage.models import (AuditEvent, CalibrationMember, CalibrationSet, Deployment, Grade,
                               Instrument, ModelStateChange, ModelVersion, Prediction, Property,
@@ -232,7 +233,7 @@ def _model_doc(session: Session, lk: _Lookups, mv: ModelVersion, cs: Calibration
     events = session.execute(select(AuditEvent.id, AuditEvent.occurred_at, AuditEvent.user_name,
                                     AuditEvent.action, AuditEvent.hash).where(
         AuditEvent.entity_type == "model_version", AuditEvent.entity_id == mv.id,
-        AuditEvent.action != "predict").order_by(AuditEvent.id)).all()
+        AuditEvent.action != Action.PREDICT).order_by(AuditEvent.id)).all()
     artifact_ok = artifact_hash(bytes(mv.artifact)) == mv.artifact_sha256
     integrity["artifact_hash_ok"] = artifact_ok
     val_ok = [validation_record_hash(v) == v.sha256 for v in validations]

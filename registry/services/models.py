@@ -14,7 +14,8 @@ from ..catalog import precision_at
 from ..chemometrics import AcceptanceCriteria, TrainedModel, train_model, validation_statistics, verdict
 from ..errors import InputError, NotFoundError
 from ..lifecycle.permissions import Action
-from ..lifecycle.states import IN_SERVICE_STATES, LifecycleAction, ModelState, as_state, check_transition
+from ..lifecycle.states import (IN_SERVICE_STATES, LifecycleAction, ModelState, as_state,
+                                check_transition)
 from ..lineage.content_hashes import artifact_hash, validation_record_hash
 from ..spectra.axes import resample
 from ..storage.lookups import get_model
