@@ -9,8 +9,6 @@ never as a traceback.
 from __future__ import annotations
 
 import logging
-
-import importlib
 from datetime import datetime
 from typing import Any, Callable
 
@@ -161,20 +159,6 @@ def check_registry() -> bool:
         st.error(f"Cannot open the registry at {database_url()!r} ({type(exc).__name__}).")
         return False
     return True
-
-
-def optional_service(name: str):
-    """``registry.services.<name>`` if that module exists, else None (shown as not available)."""
-    try:
-        return importlib.import_module(f"registry.services.{name}")
-    except ModuleNotFoundError as exc:
-        if exc.name and exc.name.endswith(name):
-            return None
-        raise
-
-
-def not_available(what: str, module: str) -> None:
-    st.info(f"{what} is not available in this installation (registry.services.{module} is missing).")
 
 
 def flash(message: str) -> None:

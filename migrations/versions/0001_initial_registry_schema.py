@@ -4,7 +4,7 @@ Revision ID: 0001
 Revises:
 Create Date: 2026-12-02
 
-Generated from registry.storage.models by ``python -m registry.storage.revise --initial``.
+Generated from registry.storage.models by Alembic autogenerate; never rewritten since.
 """
 from typing import Sequence, Union
 

@@ -26,6 +26,7 @@ Choosing the number of components
 from __future__ import annotations
 
 import warnings
+from contextlib import nullcontext
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -172,7 +173,7 @@ def cross_validate_pls(X, y, max_components: int, folds: int = 10, groups=None, 
     predictions = np.empty((n, max_components))
 
     limiter = (threadpool_limits(limits=blas_threads, user_api="blas")
-               if blas_threads is not None else _NoLimit())
+               if blas_threads is not None else nullcontext())
     with limiter:
         for f in fold_ids:
             test = fold_of_sample == f
@@ -214,11 +215,3 @@ def cross_validate_pls(X, y, max_components: int, folds: int = 10, groups=None, 
         min_press_components=int(np.argmin(press)) + 1, alpha=float(alpha), method=method,
         n_folds=int(fold_ids.size),
     )
-
-
-class _NoLimit:
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc):
-        return False

@@ -32,7 +32,7 @@ from ..plain_json import plain_json
 from ..services.auth import authenticate
 from ..services.context import Actor
 from ..storage.engine import get_engine, resolve_url, session_scope
-from .records import output_record
+from ..storage.output_fields import output_record
 
 DbOpt = Annotated[Optional[str], typer.Option(
     "--db", help="Database URL or SQLite file (default: $SPECLEDGER_DATABASE_URL or ./specledger.db).",
@@ -128,7 +128,7 @@ def login(session: Session, as_user: str | None) -> Actor:
 
 def json_text(document: Any) -> str:
     """``document`` as indented JSON; stored records through their allow-lists
-    (:data:`registry.commands.records.RECORD_FIELDS`)."""
+    (:data:`registry.storage.output_fields.RECORD_FIELDS`)."""
     return json.dumps(plain_json(document, default=output_record), indent=2, ensure_ascii=False)
 
 

@@ -8,16 +8,16 @@ in scripts): logging in and signing are two separate acts.
 from __future__ import annotations
 
 import json
+from dataclasses import asdict
 from typing import Annotated, Optional
 
 import typer
 
 from ..errors import InputError
-from ..lifecycle.revalidation import TriggerKind
+from ..lifecycle.revalidation_rules import TriggerKind
 from ..services import lifecycle as svc
 from ..services import qc as qc_svc
 from ..services import revalidation as reval_svc
-from ..storage.models import Deployment
 from .common import (AsOpt, DbOpt, FormatOpt, Output, choice, emit, handle_errors, login,
                      read_password, table, transaction)
 from .models import model_app
@@ -42,39 +42,35 @@ def model_submit(version: str, reason: ReasonOpt = "", db: DbOpt = None, as_user
                  fmt: FormatOpt = Output.text) -> None:
     """Submit your validated model version for review."""
     with transaction(db) as session:
-        mv = svc.submit_model(session, login(session, as_user), version, reason)
-        doc = {"label": mv.label, "state": mv.state}
+        moved = svc.submit_model(session, login(session, as_user), version, reason)
+    doc = {"label": moved.label, "state": moved.state}
     emit(fmt, doc, f"{doc['label']} submitted for review (state {doc['state']})")
 
 
-def _signed(fn, version: str, fmt: str, db, as_user, verb: str, **kw) -> None:
+def _signed(fn, version: str, fmt: str, db, as_user, where: str | None = None, **kw) -> None:
     with transaction(db) as session:
         actor = login(session, as_user)
-        result = fn(session, actor, version, password=_signer_password(actor.name), **kw)
-        deployed = isinstance(result, Deployment)
-        sig = svc.get_signature(session, result.signature_id) if deployed else result
-        mv = svc.get_model(session, version)
-        doc = {"label": mv.label, "state": mv.state, "signature": {
-            "id": sig.id, "signer": actor.name, "meaning": sig.meaning, "reason": sig.reason,
-            "signed_at": sig.signed_at, "signed_sha256": sig.signed_sha256,
-            "signed_parts": sig.signed_parts}}
-        if deployed:
-            doc["deployment_id"] = result.id
-    emit(fmt, doc, f"{doc['label']} {verb} (state {doc['state']}); signed by {actor.name} "
-                   f"'{sig.meaning}' at {sig.signed_at:%Y-%m-%d %H:%M:%S} UTC, "
+        moved = fn(session, actor, version, password=_signer_password(actor.name), **kw)
+    sig = moved.signature
+    doc = {"label": moved.label, "state": moved.state, "signature": asdict(sig)}
+    if moved.deployment_id is not None:
+        doc["deployment_id"] = moved.deployment_id
+    on = f" on {where}" if where else ""
+    emit(fmt, doc, f"{doc['label']}: signed '{sig.meaning}'{on} by {sig.signer} at "
+                   f"{sig.signed_at:%Y-%m-%d %H:%M:%S} UTC (state now {doc['state']}); "
                    f"content SHA-256 {sig.signed_sha256[:16]}…")
 
 
 def model_approve(version: str, reason: ReasonOpt = "", db: DbOpt = None, as_user: AsOpt = None,
                   fmt: FormatOpt = Output.text) -> None:
     """Approve a version in review (signed; not its author, not its calibration-set creator)."""
-    _signed(svc.approve_model, version, fmt, db, as_user, "approved", reason=reason)
+    _signed(svc.approve_model, version, fmt, db, as_user, reason=reason)
 
 
 def model_reject(version: str, reason: ReasonOpt = "", db: DbOpt = None, as_user: AsOpt = None,
                  fmt: FormatOpt = Output.text) -> None:
     """Reject a version (signed, with a reason); a fix is trained as a new version."""
-    _signed(svc.reject_model, version, fmt, db, as_user, "rejected", reason=reason)
+    _signed(svc.reject_model, version, fmt, db, as_user, reason=reason)
 
 
 def model_activate(version: str,
@@ -82,8 +78,8 @@ def model_activate(version: str,
                    reason: ReasonOpt = "", db: DbOpt = None, as_user: AsOpt = None,
                    fmt: FormatOpt = Output.text) -> None:
     """Deploy an approved version on an instrument (signed); supersedes the one active there."""
-    _signed(svc.activate_model, version, fmt, db, as_user, f"activated on {instrument}",
-            instrument=instrument, reason=reason)
+    _signed(svc.activate_model, version, fmt, db, as_user, instrument, instrument=instrument,
+            reason=reason)
 
 
 def model_retire(version: str, reason: ReasonOpt = "",
@@ -91,8 +87,7 @@ def model_retire(version: str, reason: ReasonOpt = "",
                      "--instrument", help="Retire on this instrument only (default: everywhere).")] = None,
                  db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Take a version out of service (signed, with a reason)."""
-    _signed(svc.retire_model, version, fmt, db, as_user,
-            "retired" + (f" on {instrument}" if instrument else ""), reason=reason,
+    _signed(svc.retire_model, version, fmt, db, as_user, instrument, reason=reason,
             instrument=instrument)
 
 

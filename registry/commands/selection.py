@@ -13,7 +13,7 @@ from ..errors import InputError
 from ..services import selection as svc
 from ..services import selection_runs as runs
 from ..services.models import read_recipe
-from ..services.timeparse import parse_time
+from ..timeparse import parse_time
 from ..selection.picking import METHODS
 from .common import (AsOpt, DbOpt, FormatOpt, Output, choice, emit, handle_errors, login,
                      staged_output, table, transaction)

@@ -6,7 +6,7 @@ call these functions inside their transactions.
 
 from registry.lifecycle.permissions import PERMISSIONS, Action, Role, require
 from registry.lifecycle.qc_charts import Signal, evaluate, ewma_chart, individuals_mr_chart
-from registry.lifecycle.revalidation import coverage_drift, due_date, due_status, to_site_time
+from registry.lifecycle.revalidation_rules import coverage_drift, due_date, due_status, to_site_time
 from registry.lifecycle.signatures import (
     SIGNATURE_MEANINGS,
     SignatureRecord,

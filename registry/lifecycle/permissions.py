@@ -71,7 +71,11 @@ class Role(StrEnum):
 
 
 class Action(StrEnum):
-    """Every action a user can take in the registry."""
+    """Every action the audit trail records (its ``action`` column holds only these).
+
+    All but the :data:`RECORDED_ONLY` ones are user actions with a row in
+    :data:`PERMISSIONS`.
+    """
 
     USER_ADD = "user_add"
     USER_DEACTIVATE = "user_deactivate"
@@ -103,6 +107,17 @@ class Action(StrEnum):
     VIEW = "view"
     AUDIT_VERIFY = "audit_verify"
     TRACE = "trace"
+    # recorded under their own name, but not a row of the permission table
+    SELECTION_CLOSE = "selection_close"
+    TRIGGER_CLEAR = "trigger_clear"
+    CATALOG_SEED = "catalog_seed"
+
+
+#: Audit names that are not permissions: closing a selection run is allowed by
+#: ``selection_run``, withdrawing a trigger by ``trigger_raise``, and the registry itself
+#: seeds the catalog of an empty database.
+RECORDED_ONLY: frozenset[Action] = frozenset(
+    {Action.SELECTION_CLOSE, Action.TRIGGER_CLEAR, Action.CATALOG_SEED})
 
 
 def _roles(*names: Role) -> frozenset[Role]:
@@ -194,9 +209,13 @@ LIFECYCLE_PERMISSIONS: dict[LifecycleAction, Action] = {
 
 def _as_action(action: Action | str) -> Action:
     try:
-        return Action(action)
+        action = Action(action)
     except ValueError:
         raise InputError(f"unknown action {action!r}", field="action") from None
+    if action in RECORDED_ONLY:
+        raise InputError(f"{action.value} is recorded in the audit trail but is not a "
+                         "permission of its own", field="action")
+    return action
 
 
 def _as_roles(roles: Iterable[Role | str]) -> frozenset[Role]:
@@ -226,7 +245,7 @@ def is_allowed(roles: Iterable[Role | str], action: Action | str) -> bool:
 def allowed_actions(roles: Iterable[Role | str]) -> list[Action]:
     """Actions any of ``roles`` may perform, in :class:`Action` order (for menus)."""
     held = _as_roles(roles)
-    return [action for action in Action if held & PERMISSIONS[action]]
+    return [action for action in Action if held & PERMISSIONS.get(action, frozenset())]
 
 
 def require(roles: Iterable[Role | str], action: Action | str, *, user: str | None = None) -> None:

@@ -21,7 +21,7 @@ from datetime import datetime, timezone
 
 from registry.errors import InputError
 from registry.lineage.canonical import utc_text, canonical_json, sha256_hex  # noqa: F401  (re-exported)
-from registry.lifecycle.revalidation import to_site_time
+from registry.lifecycle.revalidation_rules import to_site_time
 from registry.lifecycle.states import LifecycleAction
 
 #: What each signed action means, stated with the signature (§11.50(a)(3)).

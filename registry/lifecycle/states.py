@@ -1,5 +1,10 @@
 """Lifecycle states of a model version and the legal moves between them.
 
+This module is the one place that spells a state: everything else names the
+members of :class:`ModelState` (and :class:`DeploymentState`), and the next
+state of a move is always read from :data:`TRANSITIONS` (via
+:func:`check_transition`), never written down by the caller.
+
 The table here only says which moves are legal; the services decide *whether*
 to make one (for example, a failing validation records its result and leaves
 the version in ``draft`` by simply not asking for the ``validate`` move).
@@ -87,11 +92,33 @@ del S, A
 TERMINAL_STATES: frozenset[ModelState] = frozenset(
     {ModelState.RETIRED, ModelState.SUPERSEDED, ModelState.REJECTED})
 
+#: Versions in service: they predict in routine use and fall due for revalidation.
+IN_SERVICE_STATES: frozenset[ModelState] = frozenset({ModelState.APPROVED, ModelState.ACTIVE})
+
+#: The current model of a property on a grade is the newest version in the first of these
+#: groups of states that has one: an active version; failing that the newest approved or
+#: validated one. Its calibration space is the one to show and to select new samples against.
+CURRENT_MODEL_PREFERENCE: tuple[tuple[ModelState, ...], ...] = (
+    (ModelState.ACTIVE,), (ModelState.APPROVED, ModelState.VALIDATED))
+#: Every state a current model can be in (passed validation, neither held nor ended).
+CURRENT_MODEL_STATES: frozenset[ModelState] = frozenset(
+    s for group in CURRENT_MODEL_PREFERENCE for s in group)
+
+
+class DeploymentState(StrEnum):
+    """State of one deployment of a version on one instrument."""
+
+    ACTIVE = "active"
+    SUPERSEDED = "superseded"  # another version was activated there
+    RETIRED = "retired"  # taken out of service there
+
+
 #: Actions only the registry itself performs, never a user.
 SYSTEM_ACTIONS: frozenset[LifecycleAction] = frozenset({LifecycleAction.SUPERSEDE})
 
 
-def _as_state(state: ModelState | str) -> ModelState:
+def as_state(state: ModelState | str) -> ModelState:
+    """``state`` as a :class:`ModelState`; InputError (field ``state``) for an unknown name."""
     try:
         return ModelState(state)
     except ValueError:
@@ -113,7 +140,7 @@ def allowed_actions(state: ModelState | str, *, include_system: bool = False) ->
     System actions (``supersede``) are left out unless ``include_system`` is true,
     because users cannot perform them.
     """
-    state = _as_state(state)
+    state = as_state(state)
     return [action for action in LifecycleAction
             if (state, action) in TRANSITIONS
             and (include_system or action not in SYSTEM_ACTIONS)]
@@ -121,7 +148,7 @@ def allowed_actions(state: ModelState | str, *, include_system: bool = False) ->
 
 def is_terminal(state: ModelState | str) -> bool:
     """True if no action can leave ``state``."""
-    return _as_state(state) in TERMINAL_STATES
+    return as_state(state) in TERMINAL_STATES
 
 
 def check_transition(state: ModelState | str, action: LifecycleAction | str, *,
@@ -151,7 +178,7 @@ def check_transition(state: ModelState | str, action: LifecycleAction | str, *,
     InputError
         ``state`` or ``action`` is not a known value.
     """
-    state = _as_state(state)
+    state = as_state(state)
     action = _as_action(action)
     new_state = TRANSITIONS.get((state, action))
     if new_state is not None:

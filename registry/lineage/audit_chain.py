@@ -14,6 +14,7 @@ from typing import Any, Iterable
 from sqlalchemy import text
 from sqlmodel import Session, select
 
+from ..lifecycle.permissions import Action
 from ..storage.models import AuditEvent
 from ..storage.types import utcnow
 from .canonical import canonical_json, sha256_hex
@@ -26,10 +27,15 @@ def link_hash(prev_hash: str, payload_text: str) -> str:
     return sha256_hex(prev_hash + payload_text)
 
 
-def append_event(session: Session, *, user_id: int | None, user_name: str, action: str,
+def append_event(session: Session, *, user_id: int | None, user_name: str, action: Action,
                  entity_type: str = "", entity_id: int | None = None,
                  data: dict[str, Any] | None = None, at: datetime | None = None) -> AuditEvent:
-    """Append one event in the caller's transaction and return it (flushed)."""
+    """Append one event in the caller's transaction and return it (flushed).
+
+    ``action`` is an :class:`Action` member: the trail records no ad-hoc names.
+    """
+    if not isinstance(action, Action):
+        raise TypeError(f"audit action must be an Action member, got {action!r}")
     bind = session.get_bind()
     if bind.dialect.name == "postgresql":
         session.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": _PG_LOCK_KEY})

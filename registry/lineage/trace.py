@@ -26,6 +26,8 @@ from ..catalog import precision_at
 from ..chemometrics.artifact import q_limit_of
 from ..chemometrics.validation import precision_summary
 from ..errors import InputError, NotFoundError
+from ..lifecycle.permissions import Action
+from ..storage.lookups import get_model
 from ..storage.models import (AuditEvent, CalibrationMember, CalibrationSet, Deployment, Grade,
                               Instrument, ModelStateChange, ModelVersion, Prediction, Property,
                               QCResult, ReferenceMethod, ReferenceResult, RevalidationTrigger,
@@ -33,6 +35,7 @@ from ..storage.models import (AuditEvent, CalibrationMember, CalibrationSet, Dep
                               Spectrum, User, ValidationRecord)
 from ..plain_json import plain_json
 from ..storage.bulk import in_blocks
+from ..storage.revalidation_store import due_status_of, policy_for
 from ..storage.types import as_utc, utcnow
 from .content_hashes import (artifact_hash, calibration_set_hash, reference_result_hash,
                              signature_hash, spectrum_hash, validation_record_hash)
@@ -222,7 +225,7 @@ def _model_doc(session: Session, lk: _Lookups, mv: ModelVersion, cs: Calibration
     events = session.execute(select(AuditEvent.id, AuditEvent.occurred_at, AuditEvent.user_name,
                                     AuditEvent.action, AuditEvent.hash).where(
         AuditEvent.entity_type == "model_version", AuditEvent.entity_id == mv.id,
-        AuditEvent.action != "predict").order_by(AuditEvent.id)).all()
+        AuditEvent.action != Action.PREDICT).order_by(AuditEvent.id)).all()
     artifact_ok = artifact_hash(bytes(mv.artifact)) == mv.artifact_sha256
     integrity["artifact_hash_ok"] = artifact_ok
     val_ok = [validation_record_hash(v) == v.sha256 for v in validations]
@@ -300,9 +303,7 @@ def _qc_at(session: Session, lk: _Lookups, mv: ModelVersion, at: datetime,
 
 
 def _due(session: Session, mv: ModelVersion, now: datetime) -> dict:
-    from ..services.due import model_due_status, policy_for
-
-    status = model_due_status(session, mv, now)
+    status = due_status_of(session, mv, now)
     interval = policy_for(session, mv).interval_days
     if status is None:
         return {"applies": False, "interval_days": interval, "due_at": None, "days_left": None,
@@ -569,8 +570,6 @@ def build_trace(session: Session, *, prediction_id: int | None = None, sample: s
         else:
             doc["sample"] = _sample_doc(lk, srow)
     else:
-        from ..services.models import get_model
-
         mv = get_model(session, str(model))
         doc["root"] = {"kind": "model", "model": mv.label}
         cs = session.get(CalibrationSet, mv.calibration_set_id)

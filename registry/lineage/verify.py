@@ -34,6 +34,7 @@ from typing import Any, Iterator
 from sqlalchemy import select
 from sqlmodel import Session
 
+from ..lifecycle.permissions import Action
 from ..spectra.axes import axis_sha256
 from ..storage.models import (AuditEvent, CalibrationMember, CalibrationSet, ModelVersion,
                               Prediction, ReferenceResult, Sample, Signature, SpectralAxis,
@@ -129,7 +130,7 @@ class _Vouched:
                         table[int(pair[0])] = (str(pair[1]), seq)
                     except (TypeError, ValueError, IndexError):
                         continue
-        if body.get("action") == "predict" and isinstance(data.get("predictions"), list):
+        if body.get("action") == Action.PREDICT and isinstance(data.get("predictions"), list):
             for row in data["predictions"]:
                 try:
                     self.predictions[int(row[0])] = (int(row[1]), body.get("entity_id"),

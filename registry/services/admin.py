@@ -12,6 +12,7 @@ from ..lifecycle.permissions import Action, Role
 ROLES = tuple(r.value for r in Role)
 from ..storage.models import (Grade, Instrument, InstrumentEvent, Property, ReferenceMethod,
                               Site, User)
+from ..storage.revalidation_store import raise_service_triggers
 from .auth import MIN_PASSWORD_LENGTH, hash_password
 from .context import Actor, audit, authorize
 
@@ -202,9 +203,7 @@ def record_instrument_event(session: Session, actor: Actor, serial: str, kind: s
     session.flush()
     audit(session, actor, Action.INSTRUMENT_EVENT, entity_type="instrument", entity_id=inst.id,
           data={"serial": serial, "kind": kind, "note": note, "event_id": ev.id})
-    from .lifecycle_hooks import on_instrument_event  # late import: avoids a cycle
-
-    on_instrument_event(session, inst, ev)
+    raise_service_triggers(session, inst, ev)
     return ev
 
 
@@ -223,7 +222,7 @@ def seed_catalog(session: Session) -> int:
         prop = by_code[m.pop("property")]
         session.add(ReferenceMethod(property_id=prop.id, **m))
     session.flush()
-    audit(session, None, "catalog_seed", entity_type="catalog",
+    audit(session, None, Action.CATALOG_SEED, entity_type="catalog",
           data={"properties": [p["code"] for p in catalog.PROPERTIES],
                 "methods": [[m["code"], m["property"]] for m in catalog.METHODS]})
     return len(catalog.PROPERTIES)

@@ -39,7 +39,7 @@ def authorize(actor: Actor | None, action: Action) -> Actor:
     return actor
 
 
-def audit(session: Session, actor: Actor | None, action: Action | str, *,
+def audit(session: Session, actor: Actor | None, action: Action, *,
           entity_type: str = "", entity_id: int | None = None,
           data: dict[str, Any] | None = None,
           hashes: dict[str, list] | None = None) -> AuditEvent:
@@ -56,5 +56,4 @@ def audit(session: Session, actor: Actor | None, action: Action | str, *,
         data["hashes"] = {k: [[int(i), h] for i, h in v] for k, v in hashes.items()}
     return append_event(
         session, user_id=actor.id if actor else None, user_name=actor.name if actor else "system",
-        action=action.value if isinstance(action, Action) else str(action),
-        entity_type=entity_type, entity_id=entity_id, data=data)
+        action=action, entity_type=entity_type, entity_id=entity_id, data=data)

@@ -30,7 +30,7 @@ from ..storage.types import utcnow
 from .context import Actor, audit, authorize
 from . import parse_ahead
 from .references import MAX_REPORTED_ERRORS, ImportRejected
-from .timeparse import parse_time
+from ..timeparse import parse_time
 
 SPECTRUM_SUFFIXES = {".jdx", ".dx", ".jcamp", ".jcm", ".csv", ".tsv", ".txt"}
 _SAMPLE, _SHA = SPECTRUM_COLUMNS.index("sample_id"), SPECTRUM_COLUMNS.index("sha256")

@@ -33,13 +33,15 @@ Deployment choices (documented here because the rules leave them open):
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from datetime import datetime
 
 from sqlmodel import Session, select
 
-from ..errors import InputError, IntegrityError, NotFoundError, StateError
+from ..errors import InputError, IntegrityError, StateError
 from ..lifecycle.permissions import Action
 from ..lifecycle.signatures import SignatureRecord, signed_content_hash
-from ..lifecycle.states import LifecycleAction, check_separation_of_duties, check_transition
+from ..lifecycle.states import (DeploymentState, LifecycleAction, ModelState,
+                                check_separation_of_duties, check_transition)
 from ..lineage.content_hashes import (artifact_hash, calibration_set_hash, signature_hash,
                                       validation_record_hash)
 from ..storage.models import (CalibrationMember, CalibrationSet, Deployment, Grade, Instrument,
@@ -169,8 +171,44 @@ def model_signatures(session: Session, actor: Actor, label: str) -> list[dict]:
 
 # --------------------------------------------------------------------------- moves
 
-def _state_check(mv: ModelVersion, action: LifecycleAction) -> None:
-    check_transition(mv.state, action, label=f"model {mv.label}")
+@dataclass(frozen=True)
+class SignedAs:
+    """The electronic signature a move was made with."""
+
+    id: int
+    signer: str
+    meaning: str
+    reason: str
+    signed_at: datetime
+    signed_sha256: str
+    signed_parts: dict[str, str]
+
+
+@dataclass(frozen=True)
+class MoveResult:
+    """What every lifecycle move returns: the version's state before and after, the
+    signature (None for a submission) and, for an activation, the new deployment."""
+
+    label: str
+    from_state: ModelState
+    state: ModelState
+    signature: SignedAs | None = None
+    deployment_id: int | None = None
+
+
+def _result(mv: ModelVersion, from_state: ModelState, actor: Actor, sig: Signature | None = None,
+            deployment: Deployment | None = None) -> MoveResult:
+    signed = None if sig is None else SignedAs(
+        id=sig.id, signer=actor.name, meaning=sig.meaning, reason=sig.reason,
+        signed_at=sig.signed_at, signed_sha256=sig.signed_sha256,
+        signed_parts=dict(sig.signed_parts))
+    return MoveResult(label=mv.label, from_state=from_state, state=mv.state, signature=signed,
+                      deployment_id=deployment.id if deployment else None)
+
+
+def _next_state(mv: ModelVersion, action: LifecycleAction) -> ModelState:
+    """The state ``action`` leads to from the version's state (refused if not legal)."""
+    return check_transition(mv.state, action, label=f"model {mv.label}")
 
 
 def _calset_creator(session: Session, mv: ModelVersion) -> int | None:
@@ -189,49 +227,49 @@ def _signature_hashes(sig: Signature) -> dict[str, list]:
     return {"signature": [(sig.id, signature_hash(sig))]}
 
 
-def submit_model(session: Session, actor: Actor, label: str, reason: str = "") -> ModelVersion:
+def submit_model(session: Session, actor: Actor, label: str, reason: str = "") -> MoveResult:
     """The author submits a validated version for review (no signature needed)."""
     authorize(actor, Action.MODEL_SUBMIT)
     mv = get_model(session, label)
-    _state_check(mv, LifecycleAction.SUBMIT)
+    next_state = _next_state(mv, LifecycleAction.SUBMIT)
     check_separation_of_duties(LifecycleAction.SUBMIT, actor.id, mv.author_id,
                                _calset_creator(session, mv))
     if latest_passing_record(session, mv) is None:
         raise StateError(f"model {mv.label} has no passing validation record to submit")
     old = mv.state
-    change = record_state_change(session, mv, "in_review", actor, reason.strip())
+    change = record_state_change(session, mv, next_state, actor, reason.strip())
     audit(session, actor, Action.MODEL_SUBMIT, entity_type=ENTITY, entity_id=mv.id,
           data={"label": mv.label, "from": old, "to": mv.state, "reason": change.reason})
-    return mv
+    return _result(mv, old, actor)
 
 
 def approve_model(session: Session, actor: Actor, label: str, *, password: str,
-                  reason: str = "") -> Signature:
+                  reason: str = "") -> MoveResult:
     """A reviewer who is neither the author nor the calibration-set creator signs approval."""
     authorize(actor, Action.MODEL_APPROVE)
     mv = get_model(session, label)
-    _state_check(mv, LifecycleAction.APPROVE)
+    next_state = _next_state(mv, LifecycleAction.APPROVE)
     check_separation_of_duties(LifecycleAction.APPROVE, actor.id, mv.author_id,
                                _calset_creator(session, mv))
     verify_signer(session, actor, password)
     return _signed_move(session, actor, mv, LifecycleAction.APPROVE, Action.MODEL_APPROVE,
-                        "approved", (reason or "").strip())
+                        next_state, (reason or "").strip())
 
 
 def reject_model(session: Session, actor: Actor, label: str, *, password: str,
-                 reason: str) -> Signature:
+                 reason: str) -> MoveResult:
     """A reviewer ends a version with a signed reason; a fix is trained as a new version."""
     authorize(actor, Action.MODEL_REJECT)
     mv = get_model(session, label)
-    _state_check(mv, LifecycleAction.REJECT)
+    next_state = _next_state(mv, LifecycleAction.REJECT)
     reason = _require_reason(reason, "a rejection")
     verify_signer(session, actor, password)
     return _signed_move(session, actor, mv, LifecycleAction.REJECT, Action.MODEL_REJECT,
-                        "rejected", reason)
+                        next_state, reason)
 
 
 def _signed_move(session: Session, actor: Actor, mv: ModelVersion, move: LifecycleAction,
-                 action: Action, to_state: str, reason: str) -> Signature:
+                 action: Action, to_state: ModelState, reason: str) -> MoveResult:
     sig = _sign(session, actor, mv, move, reason)
     old = mv.state
     record_state_change(session, mv, to_state, actor, reason, signature_id=sig.id)
@@ -240,7 +278,7 @@ def _signed_move(session: Session, actor: Actor, mv: ModelVersion, move: Lifecyc
                 "signature_id": sig.id, "meaning": sig.meaning,
                 "signed_sha256": sig.signed_sha256},
           hashes=_signature_hashes(sig))
-    return sig
+    return _result(mv, old, actor, sig)
 
 
 # --------------------------------------------------------------------------- deployment
@@ -297,7 +335,7 @@ def check_compatibility(session: Session, mv: ModelVersion, inst: Instrument) ->
 
 def _active_deployments(session: Session, *, instrument_id: int | None = None,
                         model_version_id: int | None = None) -> list[Deployment]:
-    q = select(Deployment).where(Deployment.state == "active")
+    q = select(Deployment).where(Deployment.state == DeploymentState.ACTIVE)
     if instrument_id is not None:
         q = q.where(Deployment.instrument_id == instrument_id)
     if model_version_id is not None:
@@ -306,7 +344,7 @@ def _active_deployments(session: Session, *, instrument_id: int | None = None,
 
 
 def activate_model(session: Session, actor: Actor, label: str, *, instrument: str, password: str,
-                   reason: str = "") -> Deployment:
+                   reason: str = "") -> MoveResult:
     """Deploy an approved (or already active) version on one instrument, signed.
 
     The version active before for the same property and grade on that
@@ -314,7 +352,7 @@ def activate_model(session: Session, actor: Actor, label: str, *, instrument: st
     """
     authorize(actor, Action.MODEL_ACTIVATE)
     mv = get_model(session, label)
-    _state_check(mv, LifecycleAction.ACTIVATE)
+    next_state = _next_state(mv, LifecycleAction.ACTIVATE)
     inst = get_instrument(session, instrument)
     if _active_deployments(session, instrument_id=inst.id, model_version_id=mv.id):
         raise StateError(f"model {mv.label} is already active on {inst.serial}")
@@ -328,40 +366,41 @@ def activate_model(session: Session, actor: Actor, label: str, *, instrument: st
         old = session.get(ModelVersion, dep.model_version_id)
         if old.property_id != mv.property_id or old.grade_id != mv.grade_id:
             continue
-        dep.state, dep.ended_at = "superseded", now
+        dep.state, dep.ended_at = DeploymentState.SUPERSEDED, now
         session.add(dep)
         session.flush()
         entry = {"label": old.label, "deployment_id": dep.id, "state_changed": False}
         if not _active_deployments(session, model_version_id=old.id):
-            check_transition(old.state, LifecycleAction.SUPERSEDE, label=f"model {old.label}")
-            record_state_change(session, old, "superseded", actor, f"superseded by {mv.label}")
+            record_state_change(session, old, _next_state(old, LifecycleAction.SUPERSEDE), actor,
+                                f"superseded by {mv.label}")
             entry["state_changed"] = True
         superseded.append(entry)
-    deployment = Deployment(model_version_id=mv.id, instrument_id=inst.id, state="active",
-                            deployed_at=now, deployed_by_id=actor.id, signature_id=sig.id)
+    deployment = Deployment(model_version_id=mv.id, instrument_id=inst.id,
+                            state=DeploymentState.ACTIVE, deployed_at=now, deployed_by_id=actor.id,
+                            signature_id=sig.id)
     session.add(deployment)
     session.flush()
     old_state = mv.state
-    if mv.state != "active":
-        record_state_change(session, mv, "active", actor, reason or f"activated on {inst.serial}",
-                            signature_id=sig.id)
+    if next_state != mv.state:
+        record_state_change(session, mv, next_state, actor,
+                            reason or f"activated on {inst.serial}", signature_id=sig.id)
     audit(session, actor, Action.MODEL_ACTIVATE, entity_type=ENTITY, entity_id=mv.id,
           data={"label": mv.label, "from": old_state, "to": mv.state, "instrument": inst.serial,
                 "deployment_id": deployment.id, "reason": reason, "signature_id": sig.id,
                 "meaning": sig.meaning, "compatibility": compat, "superseded": superseded},
           hashes=_signature_hashes(sig))
-    return deployment
+    return _result(mv, old_state, actor, sig, deployment)
 
 
 def retire_model(session: Session, actor: Actor, label: str, *, password: str, reason: str,
-                 instrument: str | None = None) -> Signature:
+                 instrument: str | None = None) -> MoveResult:
     """Take a version out of service, signed: everywhere, or on one instrument only.
 
     The version's state becomes ``retired`` once no active deployment is left.
     """
     authorize(actor, Action.MODEL_RETIRE)
     mv = get_model(session, label)
-    _state_check(mv, LifecycleAction.RETIRE)
+    next_state = _next_state(mv, LifecycleAction.RETIRE)
     reason = _require_reason(reason, "retiring a model version")
     deps = _active_deployments(session, model_version_id=mv.id)
     inst = None
@@ -376,19 +415,19 @@ def retire_model(session: Session, actor: Actor, label: str, *, password: str, r
     now = utcnow()
     ended = []
     for dep in deps:
-        dep.state, dep.ended_at = "retired", now
+        dep.state, dep.ended_at = DeploymentState.RETIRED, now
         session.add(dep)
         ended.append(dep.id)
     session.flush()
     old_state = mv.state
     if not _active_deployments(session, model_version_id=mv.id):
-        record_state_change(session, mv, "retired", actor, reason, signature_id=sig.id)
+        record_state_change(session, mv, next_state, actor, reason, signature_id=sig.id)
     audit(session, actor, Action.MODEL_RETIRE, entity_type=ENTITY, entity_id=mv.id,
           data={"label": mv.label, "from": old_state, "to": mv.state,
                 "instrument": inst.serial if inst else None, "deployments_ended": ended,
                 "reason": reason, "signature_id": sig.id, "meaning": sig.meaning},
           hashes=_signature_hashes(sig))
-    return sig
+    return _result(mv, old_state, actor, sig)
 
 
 def active_model_on(session: Session, instrument_id: int, property_id: int,
@@ -400,10 +439,3 @@ def active_model_on(session: Session, instrument_id: int, property_id: int,
         if mv.property_id == property_id and (any_grade or mv.grade_id == grade_id):
             out.append(mv)
     return out
-
-
-def get_signature(session: Session, signature_id: int) -> Signature:
-    sig = session.get(Signature, int(signature_id))
-    if sig is None:
-        raise NotFoundError(f"unknown signature {signature_id}")
-    return sig

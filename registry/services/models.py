@@ -16,10 +16,14 @@ from ..chemometrics.artifact import q_limit_of
 from ..chemometrics.validation import precision_summary
 from ..errors import InputError, NotFoundError
 from ..lifecycle.permissions import Action
+from ..lifecycle.states import (CURRENT_MODEL_PREFERENCE, IN_SERVICE_STATES, LifecycleAction,
+                                ModelState, as_state, check_transition)
 from ..lineage.content_hashes import artifact_hash, validation_record_hash
 from ..spectra.axes import on_axis
+from ..storage.lookups import get_model
 from ..storage.models import (CalibrationSet, Grade, ModelStateChange, ModelVersion, Property,
                               ReferenceMethod, ValidationRecord)
+from ..storage.revalidation_store import clear_answered_triggers
 from ..storage.spectra_store import axis_values
 from .calibration import calibration_data, get_calset, members_of
 from .context import Actor, audit, authorize
@@ -39,22 +43,6 @@ DIAGNOSTICS_CONFIDENCE = 0.99
 #: Validation kinds: the first validation of a version, local (one site or instrument) and
 #: general (independent set covering the scope).
 VALIDATION_KINDS = ("initial", "local", "general")
-
-
-def get_model(session: Session, label: str) -> ModelVersion:
-    mv = session.exec(select(ModelVersion).where(ModelVersion.label == label)).first()
-    if mv is None and label.isdigit():
-        mv = session.get(ModelVersion, int(label))
-    if mv is None:
-        raise NotFoundError(f"unknown model version {label!r}")
-    return mv
-
-
-#: The current model of a property on a grade: the newest version in the first of these groups
-#: of states that has one (an active version; failing that the newest approved or validated).
-CURRENT_MODEL_PREFERENCE: tuple[tuple[str, ...], ...] = (("active",), ("approved", "validated"))
-#: Every state a current model can be in.
-CURRENT_MODEL_STATES: tuple[str, ...] = tuple(s for group in CURRENT_MODEL_PREFERENCE for s in group)
 
 
 def current_model(session: Session, prop: Property, grade: Grade) -> ModelVersion | None:
@@ -100,8 +88,10 @@ def _next_label(session: Session, prop: Property, grade: Grade | None) -> str:
     return label
 
 
-def record_state_change(session: Session, mv: ModelVersion, to_state: str, actor: Actor | None,
-                        reason: str = "", signature_id: int | None = None) -> ModelStateChange:
+def record_state_change(session: Session, mv: ModelVersion, to_state: ModelState,
+                        actor: Actor | None, reason: str = "",
+                        signature_id: int | None = None) -> ModelStateChange:
+    """Move ``mv`` to ``to_state`` (taken from the transition table by the caller) and log it."""
     change = ModelStateChange(model_version_id=mv.id, from_state=mv.state, to_state=to_state,
                               user_id=actor.id if actor else mv.author_id, reason=reason,
                               signature_id=signature_id)
@@ -153,7 +143,7 @@ def train_model_version(session: Session, actor: Actor, calset_name: str, *,
                           "n_spectra": int(X.shape[0]), "n_samples": int(len(set(groups.tolist())))},
                       artifact=blob, artifact_sha256=artifact_hash(blob), axis_id=axis_row.id,
                       parent_id=parent_mv.id if parent_mv else None, calibration_set_id=cs.id,
-                      state="draft", author_id=actor.id)
+                      state=ModelState.DRAFT, author_id=actor.id)
     session.add(mv)
     session.flush()
     audit(session, actor, Action.MODEL_TRAIN, entity_type="model_version", entity_id=mv.id,
@@ -191,11 +181,9 @@ def validate_model(session: Session, actor: Actor, label: str, *, calset_name: s
     if kind not in VALIDATION_KINDS:
         raise InputError("validation kind must be initial, local or general", field="--kind")
     mv = get_model(session, label)
-    from ..lifecycle.states import LifecycleAction, check_transition
-
     # Legal from draft, validated, approved and active (periodic revalidation); not while a
     # reviewer holds it (in_review) nor after it has ended.
-    check_transition(mv.state, LifecycleAction.VALIDATE, label=f"model {mv.label}")
+    next_state = check_transition(mv.state, LifecycleAction.VALIDATE, label=f"model {mv.label}")
     cs = get_calset(session, calset_name) if calset_name else session.get(CalibrationSet, mv.calibration_set_id)
     if cs.property_id != mv.property_id:
         raise InputError(f"calibration set {cs.name} is for another property", field="--calset")
@@ -231,14 +219,12 @@ def validate_model(session: Session, actor: Actor, label: str, *, calset_name: s
     rec.sha256 = validation_record_hash(rec)
     session.add(rec)
     if passed:
-        if mv.state == "draft":
-            record_state_change(session, mv, "validated", actor, "passing validation record")
+        if next_state != mv.state:
+            record_state_change(session, mv, next_state, actor, "passing validation record")
         mv.last_validated_at = rec.created_at
         session.add(mv)
-        if mv.state in ("approved", "active"):
-            from .lifecycle_hooks import clear_triggers_after_revalidation
-
-            clear_triggers_after_revalidation(session, mv, actor, rec)
+        if mv.state in IN_SERVICE_STATES:
+            clear_answered_triggers(session, mv, actor.id, rec.id)
     session.flush()
     audit(session, actor, Action.MODEL_VALIDATE, entity_type="model_version", entity_id=mv.id,
           data={"label": mv.label, "calibration_set": cs.name, "passed": passed, "reasons": reasons,
@@ -264,7 +250,7 @@ def list_models(session: Session, actor: Actor, *, property_code: str | None = N
             raise NotFoundError(f"unknown property {property_code!r}")
         q = q.where(ModelVersion.property_id == prop.id)
     if state:
-        q = q.where(ModelVersion.state == state)
+        q = q.where(ModelVersion.state == as_state(state))
     props = {p.id: p.code for p in session.exec(select(Property)).all()}
     grades = {g.id: g.code for g in session.exec(select(Grade)).all()}
     return [{"id": m.id, "label": m.label, "property": props[m.property_id],

@@ -16,14 +16,15 @@ from sqlmodel import Session, select
 
 from ..errors import InputError, NotFoundError, StateError
 from ..lifecycle.permissions import Action
-from ..lifecycle.revalidation import coverage_drift
+from ..lifecycle.revalidation_rules import coverage_drift
+from ..lifecycle.states import DeploymentState, ModelState, is_terminal
 from ..storage.models import (Deployment, Instrument, ModelVersion, Prediction, RevalidationTrigger,
                               Sample, Spectrum)
 from ..spectra.record import content_sha256_rows
 from ..storage.spectra_store import existing_hashes, load_on_axis
+from ..storage.revalidation_store import due_status_of, open_triggers, policy_for
 from ..storage.types import utcnow
 from .context import Actor, audit, authorize
-from .due import model_due_status, open_triggers, policy_for
 from .models import get_model, load_trained
 
 #: Checks that say a spectrum lies outside the calibration space (ASTM E1655, from memory); the y-range check is about
@@ -42,10 +43,10 @@ def standing_flags(session: Session, mv: ModelVersion, instrument_id: int) -> li
     flags = []
     deployed = session.exec(select(Deployment.id).where(
         Deployment.model_version_id == mv.id, Deployment.instrument_id == instrument_id,
-        Deployment.state == "active")).first()
-    if mv.state != "active" or deployed is None:
+        Deployment.state == DeploymentState.ACTIVE)).first()
+    if mv.state != ModelState.ACTIVE or deployed is None:
         flags.append("not_in_service")
-    status = model_due_status(session, mv)
+    status = due_status_of(session, mv)
     if status is not None and status.overdue:
         flags.append("overdue")
     serial = session.get(Instrument, instrument_id).serial
@@ -62,7 +63,7 @@ def predict(session: Session, actor: Actor, label: str, *, spectrum_ids: list[in
     """Predict stored spectra, or spectra from files (imported in the same transaction)."""
     authorize(actor, Action.PREDICT)
     mv = get_model(session, label)
-    if mv.state in ("rejected", "retired", "superseded"):
+    if is_terminal(mv.state):
         raise StateError(f"model {mv.label} is {mv.state}; it no longer predicts")
     if bool(spectrum_ids) == bool(files):
         raise InputError("give either --spectrum IDs or --file PATH", field="--spectrum")
@@ -73,7 +74,7 @@ def predict(session: Session, actor: Actor, label: str, *, spectrum_ids: list[in
                                  on_duplicate="error" if on_duplicate == "error" else "skip")
         spectrum_ids = list(summary.spectrum_ids)
         if summary.skipped:
-            spectrum_ids += _existing_ids_for(session, files, instrument)
+            spectrum_ids += _existing_ids_for(session, files)
     spectra = [session.get(Spectrum, int(i)) for i in spectrum_ids]
     missing = [i for i, s in zip(spectrum_ids, spectra) if s is None]
     if missing:
@@ -105,7 +106,7 @@ def predict(session: Session, actor: Actor, label: str, *, spectrum_ids: list[in
     return batch
 
 
-def _existing_ids_for(session: Session, files, instrument) -> list[int]:
+def _existing_ids_for(session: Session, files) -> list[int]:
     """Ids of already-stored spectra identical to those in ``files`` (duplicates skipped on import)."""
     from .intake import expand_paths, read_batches
 
@@ -119,7 +120,7 @@ def _existing_ids_for(session: Session, files, instrument) -> list[int]:
 
 def check_coverage_drift(session: Session, mv: ModelVersion) -> RevalidationTrigger | None:
     """Raise a coverage-drift trigger when too many recent predictions fall outside the space."""
-    if mv.state != "active":
+    if mv.state != ModelState.ACTIVE:
         return None
     policy = policy_for(session, mv)
     from datetime import timedelta
@@ -142,6 +143,6 @@ def check_coverage_drift(session: Session, mv: ModelVersion) -> RevalidationTrig
                                        "threshold": policy.coverage_threshold})
     session.add(trig)
     session.flush()
-    audit(session, None, "trigger_raise", entity_type="model_version", entity_id=mv.id,
+    audit(session, None, Action.TRIGGER_RAISE, entity_type="model_version", entity_id=mv.id,
           data={"kind": "coverage_drift", "share": float(share), "n": len(outside)})
     return trig

@@ -38,10 +38,10 @@ from ..lifecycle.permissions import Action
 from ..lifecycle.qc_charts import DEFAULT_BASELINE, qc_report
 from ..storage.models import Instrument, ModelVersion, Property, QCResult, RevalidationTrigger, Site
 from ..storage.types import as_utc, utcnow
+from ..timeparse import parse_time
 from .admin import get_grade, get_instrument, get_property
 from .context import Actor, audit, authorize
 from .lifecycle import active_model_on
-from .timeparse import parse_time
 
 MIN_RESULTS_FOR_SIGNALS = 15
 

@@ -26,17 +26,17 @@ from ..errors import InputError, NotFoundError
 from ..lifecycle.permissions import Action
 from ..precision import critical_range, critical_range_factor, sd_from_limit
 from ..lineage.content_hashes import reference_result_hash
-from ..storage.models import (Property, ReferenceMethod, ReferenceResult, Sample, SelectionPick,
-                              SelectionRun, Site)
+from ..storage.models import (Property, ReferenceMethod, ReferenceResult, ResultStatus, Sample,
+                              SelectionPick, SelectionRun, Site)
+from ..timeparse import parse_time
 from .context import Actor, audit, authorize
-from .timeparse import parse_time
 
 REQUIRED_COLUMNS = ("sample_id", "property", "method", "value", "unit", "lab", "tested_at")
 OPTIONAL_COLUMNS = ("operator", "comment")
 MAX_REPORTED_ERRORS = 50
 #: A reference result's states: valid, suspect (held out of calibration until a reviewer
 #: decides), rejected, superseded (by a correction).
-RESULT_STATUSES = ("valid", "suspect", "rejected", "superseded")
+RESULT_STATUSES = tuple(s.value for s in ResultStatus)
 #: A reviewer's decisions on a suspect result.
 DECISIONS = ("accept", "reject")
 
@@ -165,7 +165,7 @@ def import_references(session: Session, actor: Actor, path: str | Path, *,
         duplicate = key in seen or session.exec(select(ReferenceResult.id).where(
             ReferenceResult.sample_id == sample.id, ReferenceResult.method_id == method.id,
             ReferenceResult.lab == cells["lab"], ReferenceResult.tested_at == tested_at,
-            ReferenceResult.status != "superseded")).first() is not None
+            ReferenceResult.status != ResultStatus.SUPERSEDED)).first() is not None
         if duplicate:
             bad("duplicate result: same sample, method, lab and test time already "
                 "imported", line, None)
@@ -237,7 +237,7 @@ def _check_repeats(session: Session, sample_id: int, method_id: int) -> int:
     method = session.get(ReferenceMethod, method_id)
     rows = session.exec(select(ReferenceResult).where(
         ReferenceResult.sample_id == sample_id, ReferenceResult.method_id == method_id,
-        ReferenceResult.status.in_(["valid", "suspect"]))).all()
+        ReferenceResult.status.in_([ResultStatus.VALID, ResultStatus.SUSPECT]))).all()
     n = len(rows)
     if n < 2:
         return 0
@@ -251,8 +251,8 @@ def _check_repeats(session: Session, sample_id: int, method_id: int) -> int:
     marked = 0
     if spread > limit:
         for r in rows:
-            if r.status == "valid":
-                r.status = "suspect"
+            if r.status == ResultStatus.VALID:
+                r.status = ResultStatus.SUSPECT
                 r.status_reason = (
                     f"suspect — range of {n} repeats {spread:.4g} exceeds the critical range "
                     f"f({n})·σ_r = {critical_range_factor(n):g} × {sd_from_limit(r_limit):.4g} "
@@ -271,13 +271,13 @@ def resolve_suspect(session: Session, actor: Actor, result_id: int, decision: st
     rr = session.get(ReferenceResult, result_id)
     if rr is None:
         raise NotFoundError(f"no reference result {result_id}")
-    if rr.status != "suspect":
+    if rr.status != ResultStatus.SUSPECT:
         raise InputError(f"reference result {result_id} is {rr.status}, not suspect", field="ID")
     if decision not in DECISIONS:
         raise InputError("decision must be accept or reject", field="--decision")
     if not reason.strip():
         raise InputError("a reason is required", field="--reason")
-    rr.status = "valid" if decision == "accept" else "rejected"
+    rr.status = ResultStatus.VALID if decision == "accept" else ResultStatus.REJECTED
     rr.status_reason = f"{decision}ed by {actor.name}: {reason}"
     session.add(rr)
     session.flush()
@@ -294,7 +294,7 @@ def correct_reference(session: Session, actor: Actor, result_id: int, value: flo
     old = session.get(ReferenceResult, result_id)
     if old is None:
         raise NotFoundError(f"no reference result {result_id}")
-    if old.status == "superseded":
+    if old.status == ResultStatus.SUPERSEDED:
         raise InputError(f"reference result {result_id} was already superseded", field="ID")
     if not reason.strip():
         raise InputError("a reason is required", field="--reason")
@@ -309,7 +309,7 @@ def correct_reference(session: Session, actor: Actor, result_id: int, value: flo
                           selection_pick_id=old.selection_pick_id, imported_by_id=actor.id,
                           sha256="")
     session.add(new)
-    old.status = "superseded"
+    old.status = ResultStatus.SUPERSEDED
     old.status_reason = f"superseded by correction ({reason})"
     session.add(old)
     session.flush()
@@ -334,12 +334,12 @@ def calibration_values(session: Session, sample_ids: Iterable[int], property_id:
         return out
     rows = session.exec(select(ReferenceResult).where(
         ReferenceResult.sample_id.in_(ids), ReferenceResult.method_id.in_(method_ids),
-        ReferenceResult.status.in_(["valid", "suspect"]))).all()
+        ReferenceResult.status.in_([ResultStatus.VALID, ResultStatus.SUSPECT]))).all()
     by_sample: dict[int, list[ReferenceResult]] = {}
     for r in rows:
         by_sample.setdefault(r.sample_id, []).append(r)
     for sid, rs in by_sample.items():
-        if any(r.status == "suspect" for r in rs):
+        if any(r.status == ResultStatus.SUSPECT for r in rs):
             continue
         out[sid] = (sum(r.value for r in rs) / len(rs), sorted(r.id for r in rs))
     return out
@@ -350,7 +350,7 @@ def list_references(session: Session, actor: Actor, *, status: str | None = None
                     limit: int = 500) -> list[dict]:
     """Reference results, newest first (e.g. the suspect ones a reviewer must resolve)."""
     authorize(actor, Action.VIEW)
-    if status is not None and status not in RESULT_STATUSES:
+    if status is not None and status not in set(ResultStatus):
         raise InputError(f"unknown status {status!r}; use valid, suspect, rejected or superseded",
                          field="--status")
     q = (select(ReferenceResult, Sample, ReferenceMethod, Property)

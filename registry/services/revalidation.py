@@ -21,16 +21,15 @@ from sqlmodel import Session, select
 from ..catalog import precision_at, validate_precision_spec
 from ..errors import InputError, NotFoundError, StateError
 from ..lifecycle.permissions import Action
-from ..lifecycle.revalidation import TriggerKind, to_site_time
+from ..lifecycle.revalidation_rules import TriggerKind, to_site_time
+from ..lifecycle.states import IN_SERVICE_STATES, DeploymentState
 from ..storage.models import (Deployment, Grade, Instrument, ModelVersion, Property,
                               ReferenceMethod, RevalidationPolicy, RevalidationTrigger, Site)
+from ..storage.revalidation_store import due_status_of, policy_for
 from ..storage.types import as_utc, utcnow
 from .admin import get_grade, get_property
 from .context import Actor, audit, authorize
-from .due import model_due_status, policy_for
 from .models import get_model
-
-IN_SERVICE = ("approved", "active")
 
 
 # --------------------------------------------------------------------------- due list
@@ -38,7 +37,7 @@ IN_SERVICE = ("approved", "active")
 def _deployment_sites(session: Session, mv: ModelVersion) -> list[Site]:
     """Sites of the instruments the version is active on (in site-name order)."""
     inst_ids = session.exec(select(Deployment.instrument_id).where(
-        Deployment.model_version_id == mv.id, Deployment.state == "active")).all()
+        Deployment.model_version_id == mv.id, Deployment.state == DeploymentState.ACTIVE)).all()
     site_ids = {session.get(Instrument, i).site_id for i in inst_ids}
     return sorted((session.get(Site, s) for s in site_ids), key=lambda s: s.name)
 
@@ -70,9 +69,9 @@ def due_list(session: Session, actor: Actor, within_days: int | None = None,
     props = {p.id: p.code for p in session.exec(select(Property)).all()}
     grades = {g.id: g.code for g in session.exec(select(Grade)).all()}
     rows = []
-    for mv in session.exec(select(ModelVersion).where(ModelVersion.state.in_(IN_SERVICE))
+    for mv in session.exec(select(ModelVersion).where(ModelVersion.state.in_(IN_SERVICE_STATES))
                            .order_by(ModelVersion.id)).all():
-        status = model_due_status(session, mv, now)
+        status = due_status_of(session, mv, now)
         if status is None:
             continue
         if within_days is not None and not status.overdue and status.days_left > within_days:
@@ -166,7 +165,7 @@ def raise_trigger(session: Session, actor: Actor, label: str, kind: str,
     authorize(actor, Action.TRIGGER_RAISE)
     kind = _as_kind(kind)
     mv = get_model(session, label)
-    if mv.state not in IN_SERVICE:
+    if mv.state not in IN_SERVICE_STATES:
         raise StateError(f"model {mv.label} is {mv.state}; revalidation triggers apply to approved "
                          "or active versions")
     if isinstance(detail, str):
@@ -199,7 +198,7 @@ def clear_trigger(session: Session, actor: Actor, trigger_id: int, reason: str) 
     if trig is None:
         raise NotFoundError(f"unknown revalidation trigger {trigger_id}")
     mv, reason = close_trigger(session, actor, trig, reason, what="trigger")
-    audit(session, actor, "trigger_clear", entity_type="model_version", entity_id=mv.id,
+    audit(session, actor, Action.TRIGGER_CLEAR, entity_type="model_version", entity_id=mv.id,
           data={"label": mv.label, "trigger_id": trig.id, "kind": trig.kind, "reason": reason})
     return trig
 
@@ -295,7 +294,7 @@ def edit_method(session: Session, actor: Actor, code: str, property: str,
     triggers = []
     if any(k in METHOD_CONTENT_FIELDS for k in changed):
         for mv in session.exec(select(ModelVersion).where(
-                ModelVersion.property_id == prop.id, ModelVersion.state.in_(IN_SERVICE))
+                ModelVersion.property_id == prop.id, ModelVersion.state.in_(IN_SERVICE_STATES))
                 .order_by(ModelVersion.id)).all():
             trig = RevalidationTrigger(model_version_id=mv.id, kind=TriggerKind.METHOD_CHANGE.value,
                                        detail={"method": method.code, "property": prop.code,

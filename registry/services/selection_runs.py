@@ -146,6 +146,6 @@ def close_run(session: Session, actor: Actor, run_id: int | str, reason: str) ->
     run.state = "closed"
     session.add(run)
     session.flush()
-    audit(session, actor, "selection_close", entity_type="selection_run", entity_id=run.id,
+    audit(session, actor, Action.SELECTION_CLOSE, entity_type="selection_run", entity_id=run.id,
           data={"reason": reason})
     return run

@@ -9,12 +9,15 @@ that the audit chain can vouch for them.
 from __future__ import annotations
 
 from datetime import datetime
+from enum import StrEnum
 from typing import Any, Optional
 
 from sqlalchemy import JSON, Column, Index, MetaData, UniqueConstraint
 from sqlmodel import Field, SQLModel
 
-from .types import Blob, LongText, UTCDateTime, utcnow
+from ..lifecycle.permissions import Action
+from ..lifecycle.states import DeploymentState, ModelState
+from .types import Blob, EnumText, LongText, UTCDateTime, enum_check, utcnow
 
 # Named constraints: Alembic batch migrations on SQLite must be able to drop them by name.
 SQLModel.metadata.naming_convention = {
@@ -33,6 +36,11 @@ def _ts(**kw) -> Any:
 
 def _ts_opt(**kw) -> Any:
     return Field(default=None, sa_type=UTCDateTime, **kw)
+
+
+def _enum(enum: type[StrEnum], length: int = 20, **kw) -> Any:
+    """A column holding one of ``enum``'s values; pair it with ``enum_check`` in the table args."""
+    return Field(sa_type=EnumText(enum, length), **kw)
 
 
 def _json(default_factory=dict) -> Any:
@@ -185,14 +193,21 @@ class Spectrum(SQLModel, table=True):
     created_at: datetime = _ts()
 
 
-class ReferenceResult(SQLModel, table=True):
-    """A primary-test-method result. Corrections create a new row (``supersedes_id``).
+class ResultStatus(StrEnum):
+    """Standing of one reference result."""
 
-    ``status``: valid, suspect (held out of calibration until resolved), rejected, superseded.
-    """
+    VALID = "valid"
+    SUSPECT = "suspect"  # held out of calibration until a reviewer resolves it
+    REJECTED = "rejected"  # a reviewer excluded it
+    SUPERSEDED = "superseded"  # a correction replaced it
+
+
+class ReferenceResult(SQLModel, table=True):
+    """A primary-test-method result. Corrections create a new row (``supersedes_id``)."""
 
     __tablename__ = "reference_result"
-    __table_args__ = (Index("ix_reference_result_sample_method", "sample_id", "method_id"),)
+    __table_args__ = (Index("ix_reference_result_sample_method", "sample_id", "method_id"),
+                      enum_check("status", ResultStatus))
     id: Optional[int] = Field(default=None, primary_key=True)
     sample_id: int = Field(foreign_key="sample.id", index=True)
     method_id: int = Field(foreign_key="reference_method.id", index=True)
@@ -201,7 +216,7 @@ class ReferenceResult(SQLModel, table=True):
     tested_at: datetime = _ts()
     operator: str = Field(default="", max_length=120)
     comment: str = Field(default="", sa_type=LongText)
-    status: str = Field(default="valid", max_length=20, index=True)
+    status: ResultStatus = _enum(ResultStatus, default=ResultStatus.VALID, index=True)
     status_reason: str = Field(default="", sa_type=LongText)
     supersedes_id: Optional[int] = Field(default=None, foreign_key="reference_result.id")
     selection_pick_id: Optional[int] = Field(default=None, foreign_key="selection_pick.id", index=True)
@@ -280,6 +295,7 @@ class ModelVersion(SQLModel, table=True):
     """A trained model: recipe, chosen size, CV curve and a hashed array artifact."""
 
     __tablename__ = "model_version"
+    __table_args__ = (enum_check("state", ModelState),)
     id: Optional[int] = Field(default=None, primary_key=True)
     label: str = Field(unique=True, max_length=120)
     property_id: int = Field(foreign_key="property.id", index=True)
@@ -293,7 +309,7 @@ class ModelVersion(SQLModel, table=True):
     axis_id: int = Field(foreign_key="spectral_axis.id")
     parent_id: Optional[int] = Field(default=None, foreign_key="model_version.id")
     calibration_set_id: int = Field(foreign_key="calibration_set.id", index=True)
-    state: str = Field(default="draft", max_length=20, index=True)
+    state: ModelState = _enum(ModelState, default=ModelState.DRAFT, index=True)
     author_id: int = Field(foreign_key="app_user.id")
     created_at: datetime = _ts()
     last_validated_at: Optional[datetime] = _ts_opt()
@@ -301,10 +317,11 @@ class ModelVersion(SQLModel, table=True):
 
 class ModelStateChange(SQLModel, table=True):
     __tablename__ = "model_state_change"
+    __table_args__ = (enum_check("from_state", ModelState), enum_check("to_state", ModelState))
     id: Optional[int] = Field(default=None, primary_key=True)
     model_version_id: int = Field(foreign_key="model_version.id", index=True)
-    from_state: str = Field(max_length=20)
-    to_state: str = Field(max_length=20)
+    from_state: ModelState = _enum(ModelState)
+    to_state: ModelState = _enum(ModelState)
     user_id: int = Field(foreign_key="app_user.id")
     reason: str = Field(default="", sa_type=LongText)
     signature_id: Optional[int] = Field(default=None, foreign_key="signature.id")
@@ -362,11 +379,12 @@ class Signature(SQLModel, table=True):
 
 class Deployment(SQLModel, table=True):
     __tablename__ = "deployment"
-    __table_args__ = (Index("ix_deployment_instrument_state", "instrument_id", "state"),)
+    __table_args__ = (Index("ix_deployment_instrument_state", "instrument_id", "state"),
+                      enum_check("state", DeploymentState))
     id: Optional[int] = Field(default=None, primary_key=True)
     model_version_id: int = Field(foreign_key="model_version.id", index=True)
     instrument_id: int = Field(foreign_key="instrument.id", index=True)
-    state: str = Field(default="active", max_length=20)  # active, superseded, retired
+    state: DeploymentState = _enum(DeploymentState, default=DeploymentState.ACTIVE)
     deployed_at: datetime = _ts()
     deployed_by_id: int = Field(foreign_key="app_user.id")
     ended_at: Optional[datetime] = _ts_opt()
@@ -437,12 +455,13 @@ class AuditEvent(SQLModel, table=True):
     """
 
     __tablename__ = "audit_event"
-    __table_args__ = (Index("ix_audit_event_entity", "entity_type", "entity_id"),)
+    __table_args__ = (Index("ix_audit_event_entity", "entity_type", "entity_id"),
+                      enum_check("action", Action))
     id: Optional[int] = Field(default=None, primary_key=True)
     occurred_at: datetime = _ts()
     user_id: Optional[int] = Field(default=None, foreign_key="app_user.id")
     user_name: str = Field(default="", max_length=80)
-    action: str = Field(max_length=60, index=True)
+    action: Action = _enum(Action, 60, index=True)
     entity_type: str = Field(default="", max_length=40)
     entity_id: Optional[int] = None
     payload: str = Field(sa_type=LongText)

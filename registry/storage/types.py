@@ -8,8 +8,9 @@ ever sees timezone-aware UTC values.
 from __future__ import annotations
 
 from datetime import datetime, timezone
+from enum import StrEnum
 
-from sqlalchemy import DateTime, LargeBinary, Text
+from sqlalchemy import CheckConstraint, DateTime, LargeBinary, String, Text
 from sqlalchemy.types import TypeDecorator
 
 
@@ -44,6 +45,35 @@ class UTCDateTime(TypeDecorator):
 
     def process_result_value(self, value, dialect):
         return as_utc(value)
+
+
+class EnumText(TypeDecorator):
+    """A closed set of names (a ``StrEnum``) stored as its plain values in a VARCHAR.
+
+    Rows read back as enum members. Plain VARCHAR rather than a native PostgreSQL
+    ENUM keeps both engines alike and migrations simple; the table declares
+    :func:`enum_check` on the column so the database itself refuses any other text.
+    """
+
+    impl = String
+    cache_ok = True
+
+    def __init__(self, enum: type[StrEnum], length: int):
+        super().__init__(length)
+        self.enum = enum
+
+    def process_bind_param(self, value, dialect):
+        return None if value is None else self.enum(value).value
+
+    def process_result_value(self, value, dialect):
+        return None if value is None else self.enum(value)
+
+
+def enum_check(column: str, enum: type[StrEnum]) -> CheckConstraint:
+    """CHECK that ``column`` holds one of ``enum``'s values (named ``ck_<table>_<column>``)."""
+    values = [member.value for member in enum]
+    listed = ", ".join(f"'{v}'" for v in values)
+    return CheckConstraint(f"{column} IN ({listed})", name=column)
 
 
 # Large payloads: LargeBinary is BLOB on SQLite and BYTEA on PostgreSQL.

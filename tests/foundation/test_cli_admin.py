@@ -8,7 +8,7 @@ import pytest
 from typer.testing import CliRunner
 
 from registry.cli import app
-from registry.commands.records import RECORD_FIELDS
+from registry.storage.output_fields import RECORD_FIELDS
 from registry.storage.models import User
 from registry.storage.engine import dispose_engines
 

@@ -9,7 +9,7 @@ import pytest
 from sqlalchemy import LargeBinary
 
 from registry.commands.common import json_text
-from registry.commands.records import RECORD_FIELDS, output_record
+from registry.storage.output_fields import RECORD_FIELDS, output_record
 from registry.services import admin
 from registry.storage.engine import make_engine, session_scope, upgrade
 from registry.storage.models import Spectrum, User

@@ -9,6 +9,7 @@ from registry.lifecycle.permissions import (
     ACTION_PHRASES,
     LIFECYCLE_PERMISSIONS,
     PERMISSIONS,
+    RECORDED_ONLY,
     Action,
     Role,
     allowed_actions,
@@ -20,10 +21,19 @@ from registry.lifecycle.states import LifecycleAction
 from tests.lifecycle.brief import BRIEF_ACTIONS, BRIEF_ROLES, brief_allows
 
 
-def test_action_enum_is_the_briefs_list():
-    # requirement (tests/lifecycle/brief.py): the registry's user actions
-    assert sorted(a.value for a in Action) == sorted(BRIEF_ACTIONS)
+def test_permission_table_is_the_briefs_list():
+    # requirement (tests/lifecycle/brief.py): the registry's user actions; the audit trail's other names are not
+    # permissions of their own
+    assert sorted(a.value for a in PERMISSIONS) == sorted(BRIEF_ACTIONS)
     assert len(BRIEF_ACTIONS) == len(set(BRIEF_ACTIONS)) == 30
+    assert set(Action) == set(PERMISSIONS) | RECORDED_ONLY
+    assert not RECORDED_ONLY & set(PERMISSIONS)
+
+
+@pytest.mark.parametrize("name", sorted(a.value for a in RECORDED_ONLY))
+def test_recorded_only_names_grant_nothing(name):
+    with pytest.raises(InputError, match="not a permission"):
+        require({"admin", "lab_manager", "analyst", "reviewer", "auditor"}, name)
 
 
 def test_roles_are_the_briefs_five():
@@ -31,7 +41,7 @@ def test_roles_are_the_briefs_five():
 
 
 def test_table_covers_every_action_and_phrase():
-    assert set(PERMISSIONS) == set(Action) == set(ACTION_PHRASES)
+    assert set(PERMISSIONS) == set(Action) - RECORDED_ONLY == set(ACTION_PHRASES)
 
 
 @pytest.mark.parametrize("role,action", list(itertools.product(BRIEF_ROLES, BRIEF_ACTIONS)))

@@ -11,14 +11,17 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from registry.errors import InputError
-from registry.lifecycle.revalidation import (
+from registry.lifecycle.revalidation_rules import (
     Trigger,
     TriggerKind,
+    cleared_by_revalidation,
     coverage_drift,
     due_date,
     due_status,
+    model_due_status,
     to_site_time,
 )
+from registry.lifecycle.states import ModelState
 
 UTC = timezone.utc
 
@@ -194,3 +197,37 @@ def test_unknown_zone_and_naive_input_are_refused():
     assert info.value.field == "time_zone"
     with pytest.raises(InputError):
         to_site_time(datetime(2026, 1, 1), "Europe/Berlin")
+
+
+@pytest.mark.parametrize("state", list(ModelState))
+def test_only_versions_in_service_fall_due(state):
+    # ASTM D6122 (validation of analyzer models in use; from memory): the schedule applies to
+    # versions in routine use, i.e. approved or active; a draft or an ended version has none.
+    last = datetime(2027, 1, 10, 9, tzinfo=UTC)
+    now = last + timedelta(days=400)
+    status = model_due_status(state, last, 365, [], now)
+    if state in (ModelState.APPROVED, ModelState.ACTIVE):
+        assert status == due_status(now, due_date(last, 365))
+        assert status.overdue and status.days_left == -35  # 400 - 365 whole days
+    else:
+        assert status is None
+
+
+def test_a_version_never_validated_has_no_due_date():
+    assert model_due_status(ModelState.ACTIVE, None, 365, [TriggerKind.QC_SIGNAL],
+                            datetime(2027, 1, 1, tzinfo=UTC)) is None
+
+
+def test_an_open_trigger_makes_a_version_in_service_due_now():
+    last = datetime(2027, 1, 10, 9, tzinfo=UTC)
+    now = last + timedelta(days=30)
+    status = model_due_status(ModelState.APPROVED, last, 365,
+                              [Trigger(TriggerKind.INSTRUMENT_SERVICE, "IR-100")], now)
+    assert status.due_at == now and status.overdue and status.days_left == 0
+
+
+def test_passing_revalidation_answers_every_trigger_but_a_qc_signal():
+    # a QC signal stays until a reviewer has found its cause (ASTM D6299 out-of-control
+    # action, from memory)
+    assert {k for k in TriggerKind if cleared_by_revalidation(k)} == set(TriggerKind) - {
+        TriggerKind.QC_SIGNAL}

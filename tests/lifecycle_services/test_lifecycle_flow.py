@@ -36,12 +36,13 @@ def _model(reg, label) -> ModelVersion:
 def test_reviewer_approves_with_a_signature_over_the_three_hashes(reg):
     steps.submit(reg, reg.v1)
     assert _model(reg, reg.v1).state == "in_review"
-    sig = steps.approve(reg, reg.v1)
+    moved = steps.approve(reg, reg.v1)
+    assert (moved.from_state, moved.state) == ("in_review", "approved")
     with session_scope(reg.engine) as s:
         mv = s.exec(select(ModelVersion).where(ModelVersion.label == reg.v1)).one()
         cs = s.get(CalibrationSet, mv.calibration_set_id)
         rec = s.exec(select(ValidationRecord).where(ValidationRecord.model_version_id == mv.id)).one()
-        sig = s.get(Signature, sig.id)
+        sig = s.get(Signature, moved.signature.id)
         change = s.exec(select(ModelStateChange).where(ModelStateChange.signature_id == sig.id)).one()
         # §11.50: signer, date and time, meaning; the registry adds the reason and what was signed.
         assert mv.state == "approved"
@@ -115,9 +116,9 @@ def test_rejection_needs_a_reason_and_ends_the_version(reg):
     with session_scope(reg.engine) as s, pytest.raises(InputError, match="reason"):
         lifecycle.reject_model(s, reg.actors["reviewer"], reg.v1, password=PASSWORD, reason=" ")
     with session_scope(reg.engine) as s:
-        sig = lifecycle.reject_model(s, reg.actors["reviewer"], reg.v1, password=PASSWORD,
-                                     reason="bias at the high end")
-        assert sig.meaning == "rejected as reviewer"
+        moved = lifecycle.reject_model(s, reg.actors["reviewer"], reg.v1, password=PASSWORD,
+                                       reason="bias at the high end")
+        assert moved.signature.meaning == "rejected as reviewer" and moved.state == "rejected"
     assert _model(reg, reg.v1).state == "rejected"
     with session_scope(reg.engine) as s, pytest.raises(StateError, match="final"):
         lifecycle.approve_model(s, reg.actors["reviewer"], reg.v1, password=PASSWORD)
@@ -125,9 +126,9 @@ def test_rejection_needs_a_reason_and_ends_the_version(reg):
 
 def test_activation_records_who_deployed_what_where_when(reg):
     steps.approved(reg, reg.v1)
-    dep = steps.activate(reg, reg.v1)
+    moved = steps.activate(reg, reg.v1)
     with session_scope(reg.engine) as s:
-        dep = s.get(Deployment, dep.id)
+        dep = s.get(Deployment, moved.deployment_id)
         mv = s.get(ModelVersion, dep.model_version_id)
         sig = s.get(Signature, dep.signature_id)
         assert mv.label == reg.v1 and mv.state == "active"
@@ -173,9 +174,9 @@ def test_retire_on_one_instrument_then_everywhere(reg):
     with session_scope(reg.engine) as s, pytest.raises(InputError, match="reason"):
         lifecycle.retire_model(s, reg.actors["lab_manager"], reg.v1, password=PASSWORD, reason="")
     with session_scope(reg.engine) as s:
-        sig = lifecycle.retire_model(s, reg.actors["lab_manager"], reg.v1, password=PASSWORD,
-                                     reason="replaced by the summer model")
-        assert sig.meaning == "retired from use"
+        moved = lifecycle.retire_model(s, reg.actors["lab_manager"], reg.v1, password=PASSWORD,
+                                       reason="replaced by the summer model")
+        assert moved.signature.meaning == "retired from use" and moved.state == "retired"
     with session_scope(reg.engine) as s:
         mv = s.exec(select(ModelVersion).where(ModelVersion.label == reg.v1)).one()
         assert mv.state == "retired"
@@ -217,7 +218,7 @@ def test_deployment_checks_range_resolution_and_grade(reg):
 @pytest.mark.parametrize("tamper", ["calibration_member", "artifact", "validation_record"])
 def test_signature_breaks_when_signed_content_changes_behind_the_registrys_back(reg, tamper):
     steps.submit(reg, reg.v1)
-    sig = steps.approve(reg, reg.v1)
+    signed_id = steps.approve(reg, reg.v1).signature.id
     mv = _model(reg, reg.v1)
     with reg.engine.begin() as conn:
         if tamper == "calibration_member":
@@ -233,7 +234,7 @@ def test_signature_breaks_when_signed_content_changes_behind_the_registrys_back(
             conn.execute(text("UPDATE validation_record SET reasons = '[\"edited\"]' "
                               "WHERE model_version_id = :i"), {"i": mv.id})
     with session_scope(reg.engine) as s:
-        sig = s.get(Signature, sig.id)
+        sig = s.get(Signature, signed_id)
         check = lifecycle.check_signature(s, sig)
         assert lifecycle.signature_status(s, sig) == "broken"
         assert len(check.problems) == 1

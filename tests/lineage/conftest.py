@@ -69,7 +69,7 @@ def build_lineage_registry(url: str, tmp: Path) -> dict:
         lifecycle.submit_model(s, actors["analyst"], mv.label, "ready for review")
     with session_scope(engine) as s:
         sig_id = lifecycle.approve_model(s, actors["reviewer"], mv.label, password=PASSWORD,
-                                         reason="meets the acceptance criteria").id
+                                         reason="meets the acceptance criteria").signature.id
     with session_scope(engine) as s:
         lifecycle.activate_model(s, actors["lab_manager"], mv.label, instrument="IR-100",
                                  password=PASSWORD, reason="into service")

@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 from sqlmodel import select
 
+from registry.lifecycle.states import CURRENT_MODEL_STATES
 from registry.services import calibration, models
 from registry.services import selection as svc
 from registry.storage.engine import session_scope
@@ -111,4 +112,4 @@ def test_current_model_is_one_rule_for_selection_and_the_coverage_view(with_mode
     _set_state(engine, mv, "retired")
     with session_scope(engine) as s:
         assert models.current_model(s, prop, grade) is None
-    assert set(models.CURRENT_MODEL_STATES) == {"active", "approved", "validated"}
+    assert set(CURRENT_MODEL_STATES) == {"active", "approved", "validated"}

@@ -7,6 +7,7 @@ import pandas as pd
 import plotly.graph_objects as go
 import streamlit as st
 
+from registry.lifecycle.states import CURRENT_MODEL_STATES
 from registry.services import models as model_svc
 from registry.services import views
 from ui.common import COLOURS, FAILED, PLOT_TEMPLATE, call, require_actor
@@ -28,7 +29,7 @@ if not props or not grades:
     st.stop()
 # Offer first the property and grade of a model that has a calibration space to show.
 usable = call(model_svc.list_models)
-usable = [r for r in (usable or []) if r["state"] in model_svc.CURRENT_MODEL_STATES and r["grade"]]
+usable = [r for r in (usable or []) if r["state"] in CURRENT_MODEL_STATES and r["grade"]]
 if usable:
     props.sort(key=lambda p: p != usable[0]["property"])
     grades.sort(key=lambda g: g != usable[0]["grade"])

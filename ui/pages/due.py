@@ -5,14 +5,11 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
-from ui.common import FAILED, call, not_available, optional_service, require_actor, when
+from registry.services import revalidation
+from ui.common import FAILED, call, require_actor, when
 
 require_actor()
 st.title("Revalidation due")
-revalidation = optional_service("revalidation")
-if revalidation is None:
-    not_available("The revalidation due list", "revalidation")
-    st.stop()
 
 limit = st.checkbox("Only versions due within a number of days", key="due_limit")
 within = st.number_input("Days", min_value=0, value=30, step=1, key="due_within") if limit else None

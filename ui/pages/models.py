@@ -8,11 +8,12 @@ import streamlit as st
 
 from registry.chemometrics.diagnostics import describe_q_limit
 from registry.lifecycle.permissions import LIFECYCLE_PERMISSIONS
-from registry.lifecycle.states import LifecycleAction, allowed_actions
+from registry.lifecycle.states import DeploymentState, LifecycleAction, allowed_actions
+from registry.services import lifecycle
 from registry.services import models as model_svc
 from registry.services import views
-from ui.common import (COLOURS, FAILED, PLOT_TEMPLATE, call, flash, may, not_available,
-                       optional_service, require_actor, show_flash, when)
+from ui.common import (COLOURS, FAILED, PLOT_TEMPLATE, call, flash, may, require_actor, show_flash,
+                       when)
 
 require_actor()
 st.title("Model versions")
@@ -95,16 +96,14 @@ st.dataframe(pd.DataFrame([{
                   if h["signature"] else "")} for h in d["history"]]),
     hide_index=True, key="models_history")
 
-lifecycle = optional_service("lifecycle")
-if lifecycle is not None and hasattr(lifecycle, "model_signatures"):
-    sigs = call(lifecycle.model_signatures, label)
-    if sigs is not FAILED and sigs:
-        st.markdown("**Electronic signatures**")
-        st.dataframe(pd.DataFrame([{
-            "id": s["id"], "signer": s["signer"], "meaning": s["meaning"], "reason": s["reason"],
-            "signed (UTC)": when(s["signed_at"]), "status": s["status"],
-            "problems": "; ".join(s["problems"]), "SHA-256": s["signed_sha256"]} for s in sigs]),
-            hide_index=True, key="models_signatures")
+sigs = call(lifecycle.model_signatures, label)
+if sigs is not FAILED and sigs:
+    st.markdown("**Electronic signatures**")
+    st.dataframe(pd.DataFrame([{
+        "id": s["id"], "signer": s["signer"], "meaning": s["meaning"], "reason": s["reason"],
+        "signed (UTC)": when(s["signed_at"]), "status": s["status"],
+        "problems": "; ".join(s["problems"]), "SHA-256": s["signed_sha256"]} for s in sigs]),
+        hide_index=True, key="models_signatures")
 
 st.markdown("**Deployments**")
 if d["deployments"]:
@@ -137,48 +136,45 @@ if LifecycleAction.VALIDATE in moves:
                 done(f"validation record {rec.id}: {'passed' if rec.passed else 'failed'}"
                      + ("" if rec.passed else f" ({'; '.join(rec.reasons)})"))
 
-if lifecycle is None:
-    if any(m != LifecycleAction.VALIDATE for m in moves):
-        not_available("Submitting, approving, activating and retiring", "lifecycle")
-else:
-    if LifecycleAction.SUBMIT in moves:
-        with st.form("act_submit"):
-            st.markdown("**Submit for review** (the author's act; no signature)")
-            reason = st.text_input("Note", key="act_submit_reason")
-            if st.form_submit_button("Submit"):
-                if call(lifecycle.submit_model, label, reason) is not FAILED:
-                    done(f"{label} submitted for review")
+if LifecycleAction.SUBMIT in moves:
+    with st.form("act_submit"):
+        st.markdown("**Submit for review** (the author's act; no signature)")
+        reason = st.text_input("Note", key="act_submit_reason")
+        if st.form_submit_button("Submit"):
+            if call(lifecycle.submit_model, label, reason) is not FAILED:
+                done(f"{label} submitted for review")
 
-    signed = [m for m in (LifecycleAction.APPROVE, LifecycleAction.REJECT, LifecycleAction.ACTIVATE,
-                          LifecycleAction.RETIRE) if m in moves]
-    if signed:
-        cat = call(views.catalog)
-        serials = [i["serial"] for i in cat["instruments"] if i["active"]] if cat is not FAILED else []
-        active_on = [x["instrument"] for x in d["deployments"] if x["state"] == "active"]
-    for move in signed:
-        with st.form(f"act_{move.value}"):
-            st.markdown(f"**{move.value.capitalize()}**: an electronic signature; enter your password "
-                        "again to sign")
-            instrument = None
-            if move == LifecycleAction.ACTIVATE:
-                instrument = st.selectbox("Instrument", serials, key="act_activate_instrument")
-            if move == LifecycleAction.RETIRE:
-                where = st.selectbox("Where", ["every instrument"] + active_on,
-                                     key="act_retire_instrument")
-                instrument = None if where == "every instrument" else where
-            reason = st.text_input("Reason" + (" (required)" if move in (
-                LifecycleAction.REJECT, LifecycleAction.RETIRE) else ""), key=f"act_{move.value}_reason")
-            password = st.text_input("Password", type="password", key=f"act_{move.value}_password")
-            if st.form_submit_button(f"Sign: {move.value}"):
-                if move == LifecycleAction.APPROVE:
-                    out = call(lifecycle.approve_model, label, password=password, reason=reason)
-                elif move == LifecycleAction.REJECT:
-                    out = call(lifecycle.reject_model, label, password=password, reason=reason)
-                elif move == LifecycleAction.ACTIVATE:
-                    out = call(lifecycle.activate_model, label, instrument=instrument,
-                               password=password, reason=reason)
-                else:
-                    out = call(lifecycle.retire_model, label, password=password, reason=reason,
-                               instrument=instrument)
-                if out is not FAILED:
-                    done(f"{label}: {move.value} signed")
+signed = [m for m in (LifecycleAction.APPROVE, LifecycleAction.REJECT, LifecycleAction.ACTIVATE,
+                      LifecycleAction.RETIRE) if m in moves]
+if signed:
+    cat = call(views.catalog)
+    serials = [i["serial"] for i in cat["instruments"] if i["active"]] if cat is not FAILED else []
+    active_on = [x["instrument"] for x in d["deployments"]
+                 if x["state"] == DeploymentState.ACTIVE]
+for move in signed:
+    with st.form(f"act_{move.value}"):
+        st.markdown(f"**{move.value.capitalize()}**: an electronic signature; enter your password "
+                    "again to sign")
+        instrument = None
+        if move == LifecycleAction.ACTIVATE:
+            instrument = st.selectbox("Instrument", serials, key="act_activate_instrument")
+        if move == LifecycleAction.RETIRE:
+            where = st.selectbox("Where", ["every instrument"] + active_on,
+                                 key="act_retire_instrument")
+            instrument = None if where == "every instrument" else where
+        reason = st.text_input("Reason" + (" (required)" if move in (
+            LifecycleAction.REJECT, LifecycleAction.RETIRE) else ""), key=f"act_{move.value}_reason")
+        password = st.text_input("Password", type="password", key=f"act_{move.value}_password")
+        if st.form_submit_button(f"Sign: {move.value}"):
+            if move == LifecycleAction.APPROVE:
+                out = call(lifecycle.approve_model, label, password=password, reason=reason)
+            elif move == LifecycleAction.REJECT:
+                out = call(lifecycle.reject_model, label, password=password, reason=reason)
+            elif move == LifecycleAction.ACTIVATE:
+                out = call(lifecycle.activate_model, label, instrument=instrument,
+                           password=password, reason=reason)
+            else:
+                out = call(lifecycle.retire_model, label, password=password, reason=reason,
+                           instrument=instrument)
+            if out is not FAILED:
+                done(f"{label}: {move.value} signed")

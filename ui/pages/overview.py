@@ -5,11 +5,9 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
-from registry.services import models as model_svc
-from registry.services import views
+from registry.services import revalidation, views
 from registry.services.status import registry_status
-from ui.common import (FAILED, call, database_url, flags_text, not_available, optional_service,
-                       require_actor, when)
+from ui.common import FAILED, call, database_url, flags_text, require_actor, when
 
 require_actor()
 st.title("Overview")
@@ -30,26 +28,16 @@ if status is not FAILED:
                      hide_index=True, key="overview_counts")
 
 st.subheader("Revalidation due")
-revalidation = optional_service("revalidation")
-if revalidation is not None:
-    rows = call(revalidation.due_list, within_days=30)
-    if rows is not FAILED:
-        if rows:
-            st.dataframe(pd.DataFrame([{
-                "model": r["label"], "property": r["property"], "grade": r["grade"],
-                "state": r["state"], "due (UTC)": when(r["due_at"]), "days left": r["days_left"],
-                "overdue": r["overdue"], "reasons": "; ".join(r["reasons"])} for r in rows]),
-                hide_index=True, key="overview_due")
-        else:
-            st.write("No model version in service is due within 30 days.")
-else:
-    not_available("The revalidation due list", "revalidation")
-    rows = call(model_svc.list_models)
-    if rows is not FAILED:
-        in_service = [r for r in rows if r["state"] in ("approved", "active")]
-        st.dataframe(pd.DataFrame([{"model": r["label"], "state": r["state"],
-                                    "last validated": when(r["last_validated_at"])}
-                                   for r in in_service]), hide_index=True, key="overview_due")
+rows = call(revalidation.due_list, within_days=30)
+if rows is not FAILED:
+    if rows:
+        st.dataframe(pd.DataFrame([{
+            "model": r["label"], "property": r["property"], "grade": r["grade"],
+            "state": r["state"], "due (UTC)": when(r["due_at"]), "days left": r["days_left"],
+            "overdue": r["overdue"], "reasons": "; ".join(r["reasons"])} for r in rows]),
+            hide_index=True, key="overview_due")
+    else:
+        st.write("No model version in service is due within 30 days.")
 
 st.subheader("Recent predictions")
 preds = call(views.recent_predictions, limit=25)

@@ -7,17 +7,13 @@ import plotly.graph_objects as go
 import streamlit as st
 
 from registry.lifecycle.permissions import Action
-from registry.services import views
-from ui.common import (COLOURS, FAILED, PLOT_TEMPLATE, call, flash, may, not_available,
-                       optional_service, require_actor, show_flash, when)
+from registry.services import qc, views
+from ui.common import (COLOURS, FAILED, PLOT_TEMPLATE, call, flash, may, require_actor, show_flash,
+                       when)
 
 require_actor()
 st.title("QC charts")
 show_flash()
-qc = optional_service("qc")
-if qc is None:
-    not_available("QC charts", "qc")
-    st.stop()
 
 charts = call(views.qc_charts_available)
 if charts is FAILED:

@@ -6,17 +6,14 @@ import pandas as pd
 import streamlit as st
 
 from registry.lifecycle.permissions import Action
+from registry.lifecycle.states import CURRENT_MODEL_STATES
 from registry.services import models as model_svc
-from registry.services import revalidation, selection_runs
+from registry.services import revalidation, selection, selection_runs
 from registry.services import views
-from ui.common import FAILED, call, may, not_available, optional_service, require_actor
+from ui.common import FAILED, call, may, require_actor
 
 require_actor()
 st.title("Send list")
-selection = optional_service("selection")
-if selection is None:
-    not_available("Sample selection", "selection")
-    st.stop()
 if not may(Action.SELECTION_RUN):
     st.info("Choosing samples for reference testing is a lab manager's task; your roles do not "
             "include it.")
@@ -30,7 +27,7 @@ grades = [g["code"] for g in cat["grades"]]
 # Offer first the model that most needs new samples: the first one due for revalidation
 # (overdue first), else the newest model in service.
 usable = call(model_svc.list_models)
-usable = [r for r in (usable or []) if r["state"] in model_svc.CURRENT_MODEL_STATES and r["grade"]]
+usable = [r for r in (usable or []) if r["state"] in CURRENT_MODEL_STATES and r["grade"]]
 due = call(revalidation.due_list)
 focus = None
 if due and due is not FAILED:

@@ -181,7 +181,7 @@ class _Reader:
                 continue  # trailing text after the last ##END
             elif ldr.label == "END":
                 block = stack.pop()
-                record = self.finish(block, ldr)
+                record = self.finish(block)
                 if record is not None:
                     records.append(record)
                 continue
@@ -197,7 +197,7 @@ class _Reader:
             raise self.error("no ##XYDATA or ##XYPOINTS spectrum found", line=1)
         return records
 
-    def finish(self, block: _Block, end: _Ldr) -> SpectrumRecord | None:
+    def finish(self, block: _Block) -> SpectrumRecord | None:
         if block.is_link():
             declared = block.headers.get("BLOCKS")
             if declared is not None:

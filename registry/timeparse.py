@@ -5,7 +5,7 @@ from __future__ import annotations
 from datetime import datetime, timezone
 from zoneinfo import ZoneInfo
 
-from ..errors import InputError
+from .errors import InputError
 
 
 def parse_time(text: str, tz_name: str = "UTC", *, file: str | None = None,

@@ -1,4 +1,4 @@
-"""What ``--format json`` prints of each stored record: an explicit allow-list per table.
+"""What may leave the registry of each stored record (``--format json``): an allow-list per table.
 
 A column appears in output only once it is named here, so a column added later
 (a token, a key, a blob) stays out of every JSON document until someone decides
@@ -12,7 +12,7 @@ from typing import Any
 
 from sqlmodel import SQLModel
 
-from ..storage.models import (Grade, Instrument, InstrumentEvent, Property, ReferenceMethod,
+from .models import (Grade, Instrument, InstrumentEvent, Property, ReferenceMethod,
                               ReferenceResult, RevalidationPolicy, RevalidationTrigger,
                               SelectionRun, Site, User, ValidationRecord)
 
@@ -58,7 +58,7 @@ def output_record(obj: Any) -> Any:
         fields = RECORD_FIELDS.get(type(obj))
         if fields is None:
             raise TypeError(f"no output allow-list for {type(obj).__name__} records "
-                            "(registry/commands/records.py)")
+                            "(registry/storage/output_fields.py)")
         return {name: getattr(obj, name) for name in fields}
     if isinstance(obj, PurePath):
         return str(obj)

@@ -1,4 +1,8 @@
-"""When an active model version is due for revalidation.
+"""When a model version in service is due for revalidation (the rules; no database).
+
+The rows these rules read and write (policies, triggers) are handled by
+:mod:`registry.storage.revalidation_store`; the user actions (due list,
+policies, raising and clearing triggers) are in :mod:`registry.services.revalidation`.
 
 A model in use is revalidated on a schedule and, sooner, whenever something
 happens that may have moved it off its validated state (ongoing validation in
@@ -23,8 +27,16 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 import numpy as np
 
 from registry.errors import InputError
+from registry.lifecycle.states import IN_SERVICE_STATES, ModelState
 
 _DAY = timedelta(days=1)
+
+#: Revalidation interval when no policy is set for the property (common practice: yearly).
+DEFAULT_INTERVAL_DAYS = 365
+
+#: Instrument events after which every model active on the instrument is due at once
+#: (a requalification is itself the check, so it raises nothing).
+SERVICE_EVENT_KINDS: frozenset[str] = frozenset({"service", "repair", "relocation"})
 
 
 class TriggerKind(StrEnum):
@@ -126,6 +138,42 @@ def due_status(now: datetime, due_at: datetime,
     days_left = (effective - now) // _DAY  # floor division of timedeltas: exact integer
     return DueStatus(due_at=effective, days_left=days_left, overdue=now >= effective,
                      reasons=reasons)
+
+
+def cleared_by_revalidation(kind: TriggerKind | str) -> bool:
+    """Whether a passing revalidation answers an open trigger of this kind.
+
+    A QC signal is not answered that way: a reviewer clears it once its cause is found.
+    """
+    return TriggerKind(kind) is not TriggerKind.QC_SIGNAL
+
+
+def model_due_status(state: ModelState | str, last_validated_at: datetime | None,
+                     interval_days: int, open_triggers: Iterable[Trigger | TriggerKind | str],
+                     now: datetime) -> DueStatus | None:
+    """Revalidation status of one model version at ``now``.
+
+    Parameters
+    ----------
+    state : ModelState
+        The version's state; only versions in service (approved, active) fall due.
+    last_validated_at : datetime or None
+        Its last passing validation (timezone-aware).
+    interval_days : int
+        The policy's interval for its property and grade.
+    open_triggers : iterable of Trigger, TriggerKind or str
+        Its triggers not cleared yet.
+    now : datetime
+        Timezone-aware instant to judge at.
+
+    Returns
+    -------
+    DueStatus or None
+        None for a version not in service or never validated.
+    """
+    if ModelState(state) not in IN_SERVICE_STATES or last_validated_at is None:
+        return None
+    return due_status(now, due_date(last_validated_at, interval_days), open_triggers)
 
 
 def coverage_drift(outside_flags_in_window, threshold: float = 0.2,
