@@ -2,12 +2,13 @@
 
 The learning curve of a calibration — its prediction error against the
 number of calibration samples — is measured on the existing calibration set
-by repeated subsampling (Monte Carlo cross-validation: random validation
-rows, training subsets of growing size; Xu & Liang, Chemom. Intell. Lab.
-Syst. 56:1, 2001), then fitted by an inverse power law with a floor, the
-usual form for learning curves (Mukherjee et al., J. Comput. Biol. 10:119,
-2003; Figueroa et al., BMC Med. Inform. Decis. Mak. 12:8, 2012; from
-memory), written for the mean squared error:
+by repeated cross-validation on subsamples: the rows are split into folds at
+random, and models calibrated on growing subsets of the other folds predict
+each held-out fold (RMSECV against calibration size). It is fitted by an
+inverse power law with a floor, the usual form for learning curves
+(Mukherjee et al., J. Comput. Biol. 10:119, 2003; Figueroa et al., BMC Med.
+Inform. Decis. Mak. 12:8, 2012; from memory), written for the mean squared
+error:
 
     MSE(m) = σ_r² + c + a·m^(−b),    a, c >= 0, b > 0
 
@@ -19,12 +20,14 @@ form, unmodelled effects); a·m^(−b) is what they can.
 
 The fit is a variable projection: for fixed b the model is linear in a and
 c, solved by non-negative least squares (Lawson & Hanson, Solving Least
-Squares Problems, 1974); b is found by a bounded one-dimensional search.
-Bands are bootstrap percentiles (Efron & Tibshirani, An Introduction to the
-Bootstrap, 1993): the subsampling repeats are resampled and the curve refit,
-and each forecast also carries the calibration-to-calibration scatter seen
-between repeats (beyond what the validation rows' own sampling explains)
-and, when asked, the sampling scatter of a validation set of given size.
+Squares Problems, 1974); b is found by a grid and a bounded one-dimensional
+search. Bands are bootstrap percentiles (Efron & Tibshirani, An Introduction
+to the Bootstrap, 1993): the calibration rows are resampled (the whole curve
+moves with the luck of the calibration sample) and the curve refit; each
+forecast also carries the calibration-to-calibration scatter of the model
+error seen between fold models (beyond what their held-out rows' sampling
+explains) and, when asked, the sampling scatter of a validation set of given
+size.
 
 The forecast assumes the picks resemble the calibration population. When
 the pool holds spectra outside the current model's space, the present error
@@ -266,9 +269,9 @@ def learning_curve(X, y, n_components: int, *, sizes=None, n_repeats: int = 8,
     n_train = n - int(math.ceil(n / folds))  # rows left by the largest fold
     low = n_components + 3
     if n_train < low + 2:
+        need = int((low + 2) * folds / (folds - 1)) + 1
         raise InputError(f"{n} calibration samples are too few for a learning curve with "
-                         f"{n_components} components (about {int((low + 2) * folds / (folds - 1)) + 1} "
-                         "needed)", field="X")
+                         f"{n_components} components (about {need} needed)", field="X")
     if sizes is None:
         start = max(low, n_train // 3)
         sizes = np.unique(np.round(np.geomspace(start, n_train, 6)).astype(int))
@@ -467,7 +470,8 @@ def forecast_error(X_cal, y_cal, X_pool=None, *, n_components: int | None = None
     if n_pool is not None and steps and steps[-1] > n_pool:
         raise InputError(f"steps go up to {steps[-1]} picks but the pool holds {n_pool}",
                          field="steps")
-    fc = ErrorForecast(law=law, curve=curve, n=n, n_components=a, n_pool=n_pool if n_pool is not None else -1,
+    fc = ErrorForecast(law=law, curve=curve, n=n, n_components=a,
+                       n_pool=n_pool if n_pool is not None else -1,
                        rmsecv=rmsecv, cost_per_test=cost_per_test, band=float(band), rows=[],
                        now={}, floor={}, to_reach=None, to_reach_reason="",
                        n_validation=n_validation, boot_laws=boot)
