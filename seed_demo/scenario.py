@@ -5,17 +5,21 @@ written through the service layer with the registry clock set to each step's
 date, so the audit chain, signatures and due dates are those a real registry
 would hold after such a year:
 
-* months 1–2: a calibration campaign on premium gasoline (RON, MON, density)
+* months 1–2: a calibration campaign on premium gasoline (density on every
+  sample scanned, the costlier engine tests for RON and MON on two in three)
   and B7 diesel (cetane); first calibration sets and model versions, validated,
-  approved with signatures and activated on both analyzers;
+  approved with signatures and activated: RON and MON on both analyzers, density
+  on the terminal's analyzer (the refinery lab measures density directly on its
+  own density meter), cetane on the refinery's;
 * months 3–9: routine production predicted by the active models, monthly QC
   on a control material, a winter-grade switch in month 6;
 * month 7: a Kennard–Stone selection run within budget; its samples are
   engine-tested, a second calibration set and model versions follow and
   supersede the first;
-* month 10: a new blend component (heavy aromatic reformate) enters part of
-  the premium production, outside the calibration space: predictions are
-  flagged and coverage drift makes the RON and MON models due;
+* month 10: a new blend component (heavy aromatic reformate) enters most of
+  the refinery's premium production, outside the calibration space: its
+  predictions are flagged and coverage drift makes the RON and MON models due
+  (the density model, used only at the terminal, never sees it);
 * month 12: the second analyzer's QC drifts and signals;
 * now: the density model is overdue under its 180-day policy.
 """
@@ -32,13 +36,16 @@ from typing import Callable
 import numpy as np
 
 from registry.clock import frozen_at
+from registry.lifecycle.qc_charts import DEFAULT_BASELINE, qc_report
 from registry.services import (admin, calibration, intake, lifecycle, models, predictions,
                                qc, references, revalidation, selection)
 from registry.services.auth import actor_of
 from registry.services.context import Actor
+from registry.services.qc import MIN_RESULTS_FOR_SIGNALS
 from registry.spectra.formats import write_csv_spectra
 from registry.spectra.record import SpectrumRecord
 from registry.storage.engine import session_scope
+from registry.storage.models import Sample
 from seed_demo.synthetic import Analyzer, generate_population, reference_noise, reference_sigma
 
 MONTHS = 14
@@ -58,15 +65,35 @@ PEOPLE = [
 
 SITES = [("Kestrel Bay Terminal", "Europe/Oslo"), ("Alder Ridge Refinery Lab", "America/Chicago")]
 
+#: Both analyzers co-add scans and hold their cells at a set temperature (invented figures):
+#: white noise 5·10⁻⁵ absorbance, and a 0.1 % multiplicative term, about what ±1 K does to
+#: absorbance through the liquid's density (gasoline expands by about 0.1 %/K; from memory).
+_CELL = dict(noise_sd=5e-5, multiplicative_sd=1e-3)
 #: Two analyzers that differ slightly (band shift, line width, path length).
 ANALYZERS = {
-    "KB-IR-01": (SITES[0][0], Analyzer("KB-IR-01", pathlength_um=50.0)),
+    "KB-IR-01": (SITES[0][0], Analyzer("KB-IR-01", pathlength_um=50.0, **_CELL)),
     "AR-IR-02": (SITES[1][0], Analyzer("AR-IR-02", pathlength_um=50.5, shift_cm=0.15,
-                                       resolution_cm=4.3)),
+                                       resolution_cm=4.3, **_CELL)),
 }
 GASOLINE_PROPERTIES = {"RON": "ASTM D2699", "MON": "ASTM D2700", "DENSITY": "ASTM D4052"}
+ENGINE_PROPERTIES = {k: GASOLINE_PROPERTIES[k] for k in ("RON", "MON")}
 DIESEL_PROPERTIES = {"CN": "ASTM D613"}
+#: Where each model is used. The refinery lab (AR-IR-02) measures density directly on its
+#: density meter; the terminal (KB-IR-01) predicts it. Diesel is analysed at the refinery.
+DEPLOYED_ON = {"RON": ("KB-IR-01", "AR-IR-02"), "MON": ("KB-IR-01", "AR-IR-02"),
+               "DENSITY": ("KB-IR-01",), "CN": ("AR-IR-02",)}
+#: The calibration campaign (months 1–2): premium samples scanned per analyzer and month, all
+#: tested for density; the first ENGINE_TESTED of each batch (a random subset: a batch comes
+#: in random order) also go to the knock engines. Diesel samples scanned per month at the
+#: refinery, all cetane-tested. Sizes are invented: large enough that reference-method
+#: scatter, not sampling luck, decides the validation statistics.
+CAMPAIGN_SCANS, ENGINE_TESTED, DIESEL_SCANS = 150, 100, 100
+#: From month 10 the refinery blends the new component into this share of its premium
+#: batches, at this volume fraction.
+NEW_COMPONENT_BATCHES, NEW_COMPONENT_SHARE = 0.6, 0.12
 QC_MATERIAL = "CONTROL-PREM-A"  # a retained premium gasoline used as control material
+QC_VALUE, QC_SD = 95.3, 0.12  # its RON and the analyzers' day-to-day scatter on it (invented)
+GENERATION_2_MONTH = 8
 
 
 @dataclass
@@ -81,6 +108,22 @@ class DemoReport:
     notes: list = field(default_factory=list)
     start: datetime | None = None
     new_component_samples: list = field(default_factory=list)
+
+
+def _quiet(values: np.ndarray) -> bool:
+    """True when no result of a QC chart would signal as it is added (the QC service's rule:
+    signals count from the MIN_RESULTS_FOR_SIGNALS-th result, at the newly added point)."""
+    for k in range(MIN_RESULTS_FOR_SIGNALS, len(values) + 1):
+        if any(s.index == k - 1 for s in qc_report(values[:k], baseline=DEFAULT_BASELINE).signals):
+            return False
+    return True
+
+
+def _validation_samples(session, calset_name: str) -> list[str]:
+    """External ids of a calibration set's validation members."""
+    cs = calibration.get_calset(session, calset_name)
+    return [session.get(Sample, m.sample_id).external_id
+            for m in calibration.members_of(session, cs, "val")]
 
 
 class _Builder:
@@ -178,8 +221,8 @@ class _Builder:
         return ids
 
     def reference_results(self, month: float, ids: list[str], props: dict[str, str],
-                          lab: str = "Alder Ridge engine lab") -> None:
-        """Primary-method results from the labs' own engine bench, over months.
+                          lab: str = SITES[1][0]) -> None:
+        """Primary-method results from the refinery lab's engines and density meter.
 
         Invented scatter: the bench's intermediate precision (ISO 5725-3: one laboratory,
         different days, operators and requalifications) is set halfway between repeatability
@@ -197,9 +240,10 @@ class _Builder:
             noisy = noisy + extra * self.rng.standard_normal(truth.shape)
             unit = "g/mL" if code == "DENSITY" else ""
             digits = 4 if code == "DENSITY" else 1
+            bench = "density-meter" if code == "DENSITY" else "engine-bench"
             for sid, v in zip(ids, noisy):
                 lines.append(f"{sid},{code},{method},{v:.{digits}f},{unit},{lab},"
-                             f"{when.strftime('%Y-%m-%dT%H:%MZ')},engine-bench")
+                             f"{when.strftime('%Y-%m-%dT%H:%MZ')},{bench}")
         path = self.work / f"ref-m{month:04.1f}-{len(ids)}-{'-'.join(props)}.csv"
         path.write_text("\n".join(lines) + "\n")
         self.act(when + timedelta(hours=2), references.import_references, self.actors["teodor"], path)
@@ -207,11 +251,20 @@ class _Builder:
     # ------------------------------------------------------------------ models
     def model_generation(self, month: float, prop: str, grade: str, generation: int,
                          parent: str | None) -> str:
+        """Calibration set, model version, validation, approval and deployment of one generation.
+
+        Generation 1 splits its samples by Duplex; a later generation keeps the first one's
+        validation samples, so the reviewer judges both versions on the same samples, and
+        every newly tested sample (picked to widen the calibration) goes into calibration.
+        """
         name = f"{prop}-{grade}-G{generation}"
         mgr, author, reviewer = self.actors["imara"], self.actors["teodor"], self.actors["greta"]
+        split = ({"validation": "duplex:0.25"} if generation == 1 else
+                 {"validation_external_ids": self.act(self.at(month, 2), _validation_samples,
+                                                      f"{prop}-{grade}-G1")})
         self.act(self.at(month, 2), calibration.create_calibration_set, mgr, name,
                  property_code=prop, grade_code=grade, all_referenced=True,
-                 validation="duplex:0.25", description=f"generation {generation} for {prop}")
+                 description=f"generation {generation} for {prop}", **split)
         mv = self.act(self.at(month, 3), models.train_model_version, author, name,
                       max_components=15, parent=parent)
         label = mv.label
@@ -224,8 +277,7 @@ class _Builder:
         self.act(self.at(month, 7), lifecycle.approve_model, reviewer, label,
                  password=self.passwords["greta"],
                  reason="validation statistics within acceptance criteria")
-        serials = list(ANALYZERS) if grade == GASOLINE_GRADE else ["AR-IR-02"]
-        for k, serial in enumerate(serials):
+        for k, serial in enumerate(DEPLOYED_ON[prop]):
             self.act(self.at(month, 8, hour=k), lifecycle.activate_model, mgr, label,
                      instrument=serial, password=self.passwords["imara"],
                      reason="deployment after approval")
@@ -241,34 +293,63 @@ class _Builder:
         for serial, spectrum_ids in spec.items():
             analyst = self.actors["teodor" if serial == "KB-IR-01" else "sana"]
             for prop, label in labels.items():
-                if spectrum_ids:
+                if spectrum_ids and serial in DEPLOYED_ON[prop]:
                     self.act(self.at(month, 28, hour=6), predictions.predict, analyst, label,
                              spectrum_ids=spectrum_ids)
+
+    def qc_times(self) -> list[datetime]:
+        """When the weekly QC runs of months 3 to the end take place."""
+        return [self.at(m, 3 + 7 * week, hour=7) for m in range(3, self.months + 1)
+                for week in range(4)]
+
+    def quiet_qc_scatter(self, serial: str) -> dict[datetime, float]:
+        """An in-control analyzer's QC scatter around the control material's value.
+
+        The run rules raise chance signals on an in-control chart now and then (each rule
+        has a false-alarm rate); the story's analyzers are in control until AR-IR-02 drifts
+        in month 12, so the scatter is drawn (from its own seeded stream) until no result
+        would signal as it is added. Results are charted per active model version, so each
+        version's stretch is checked on its own, with the service's rules.
+        """
+        rng = np.random.default_rng([self.seed, list(ANALYZERS).index(serial)])
+        times = self.qc_times()
+        switch = self.at(GENERATION_2_MONTH, 8)  # generation 2 goes live on day 8
+        split = sum(t < switch for t in times)
+        while True:
+            scatter = np.round(QC_SD * rng.standard_normal(len(times)), 2)
+            if all(_quiet(QC_VALUE + part) for part in (scatter[:split], scatter[split:])):
+                return dict(zip(times, scatter.tolist()))
 
     def qc_month(self, month: float, drift: float = 0.0) -> None:
         """Four QC runs per analyzer: the control material's RON as predicted on the day."""
         for serial in ANALYZERS:
             shift = drift if serial == "AR-IR-02" else 0.0
             for week in range(4):
+                when = self.at(month, 3 + 7 * week, hour=7)
                 # Late in the month the drift has fully developed.
-                value = 95.3 + float(self.rng.normal(0, 0.12)) + shift * (week + 1) / 4
-                self.act(self.at(month, 3 + 7 * week, hour=7), qc.add_qc_result,
+                value = QC_VALUE + self.qc_scatter[serial][when] + shift * (week + 1) / 4
+                self.act(when, qc.add_qc_result,
                          self.actors["teodor" if serial == "KB-IR-01" else "sana"],
                          instrument=serial, material=QC_MATERIAL, value=round(value, 2),
-                         known_value=95.3 if (month == 3 and week == 0) else None,
+                         known_value=QC_VALUE if (month == 3 and week == 0) else None,
                          property_code="RON", grade_code=GASOLINE_GRADE)
 
     # ------------------------------------------------------------------ story
     def run(self) -> DemoReport:
         self.say("setting up sites, analyzers, people and policies")
         self.setup()
+        self.qc_scatter = {serial: self.quiet_qc_scatter(serial) for serial in ANALYZERS}
         self.say("months 1-2: calibration campaign")
-        cal_g = []
+        cal_g, engine, cal_d = [], [], []
         for m, season in ((1, "summer"), (2, "winter")):
             for serial in ANALYZERS:
-                cal_g += self.spectra_batch(m, serial, "gasoline", 55, season=season, tag="C")
-        cal_d = self.spectra_batch(1, "AR-IR-02", "diesel", 96, tag="D")
-        self.reference_results(2, cal_g, GASOLINE_PROPERTIES)
+                batch = self.spectra_batch(m, serial, "gasoline", CAMPAIGN_SCANS, season=season,
+                                           tag="C")
+                cal_g += batch
+                engine += batch[:ENGINE_TESTED]
+            cal_d += self.spectra_batch(m, "AR-IR-02", "diesel", DIESEL_SCANS, tag="D")
+        self.reference_results(2, cal_g, {"DENSITY": GASOLINE_PROPERTIES["DENSITY"]})
+        self.reference_results(2, engine, ENGINE_PROPERTIES)
         self.reference_results(2, cal_d, DIESEL_PROPERTIES)
         labels = {}
         for prop in GASOLINE_PROPERTIES:
@@ -279,11 +360,12 @@ class _Builder:
         for m in range(3, self.months + 1):
             self.say(f"month {m}: production, predictions and QC")
             season = "summer" if m < 6 or m > 12 else "winter"
-            new_fraction = 0.35 if m >= 10 else 0.0
             batch = {}
             for serial in ANALYZERS:
-                batch[serial] = self.spectra_batch(m, serial, "gasoline", 62, season=season,
-                                                   new_share=0.12, new_fraction=new_fraction)
+                refinery_new = m >= 10 and serial == "AR-IR-02"
+                batch[serial] = self.spectra_batch(
+                    m, serial, "gasoline", 62, season=season, new_share=NEW_COMPONENT_SHARE,
+                    new_fraction=NEW_COMPONENT_BATCHES if refinery_new else 0.0)
             pool += batch["KB-IR-01"] + batch["AR-IR-02"]
             diesel_ids = self.spectra_batch(m, "AR-IR-02", "diesel", 18, tag="D")
             if m == 3:
@@ -296,15 +378,19 @@ class _Builder:
                 self.say("month 7: selection run, engine tests, second model generation")
                 run = self.act(self.at(7, 10), selection.run_selection, self.actors["imara"],
                                property_codes=["RON", "MON"], grade=GASOLINE_GRADE,
-                               method="kennard-stone", budget=6000.0)
+                               method="kennard-stone", budget=6000.0,
+                               # production only: retained campaign samples have aged
+                               since=self.at(3))
                 picked = [p["sample_id"] for p in run.rows]
                 self.reference_results(7.5, picked, GASOLINE_PROPERTIES)
                 extra = [i for i in pool if i not in set(picked)][::9][:30]
                 self.reference_results(7.5, extra, GASOLINE_PROPERTIES)
                 self.reference_results(7.5, diesel_ids, DIESEL_PROPERTIES)
                 for prop in GASOLINE_PROPERTIES:
-                    labels[prop] = self.model_generation(8, prop, GASOLINE_GRADE, 2, labels[prop])
-                diesel_label = self.model_generation(8, "CN", DIESEL_GRADE, 2, diesel_label)
+                    labels[prop] = self.model_generation(GENERATION_2_MONTH, prop, GASOLINE_GRADE,
+                                                         2, labels[prop])
+                diesel_label = self.model_generation(GENERATION_2_MONTH, "CN", DIESEL_GRADE, 2,
+                                                     diesel_label)
         self.report.models = list(labels.values()) + [diesel_label]
         return self.report
 

@@ -11,15 +11,19 @@ from datetime import datetime, timedelta, timezone
 
 import numpy as np
 import pytest
+from scipy import stats
 from sqlalchemy import text
 from sqlmodel import select
 
+from registry.chemometrics import AcceptanceCriteria
 from registry.lineage.audit_chain import chain_head
+from registry.precision import LIMIT_FACTOR
 from registry.services import selection
 from registry.services.auth import actor_of
 from registry.services.audit import verify_registry
 from registry.storage.engine import make_engine, session_scope, upgrade
-from registry.storage.models import ModelVersion, Prediction, Sample, Spectrum, User
+from registry.storage.models import (ModelVersion, Prediction, RevalidationTrigger, Sample, Spectrum,
+                                     User, ValidationRecord)
 from seed_demo.scenario import build_demo
 
 NOW = datetime(2026, 12, 1, 12, 0, tzinfo=timezone.utc)
@@ -69,6 +73,45 @@ def test_story_counts(demo):
     with session_scope(engine) as s:
         states = [m.state for m in s.exec(select(ModelVersion)).all()]
     assert states.count("superseded") == 4 and states.count("active") == 4
+
+
+def test_every_version_passes_the_default_acceptance_rule(demo):
+    """Each version's one validation passed the registry's default rule, re-checked here from
+    the stored numbers: n ≥ max(20, 4·A) (ASTM E1655-style, from memory), no significant bias
+    in a two-sided one-sample t-test at α = 0.05 (recomputed with scipy), and SEP ≤ σ_R with
+    σ_R = R/2.77 (ISO 5725-6; ASTM E177)."""
+    engine, _ = demo
+    default = AcceptanceCriteria().to_json()
+    with session_scope(engine) as s:
+        rows = s.exec(select(ModelVersion, ValidationRecord)
+                      .join(ValidationRecord, ValidationRecord.model_version_id == ModelVersion.id)
+                      ).all()
+    assert len(rows) == len({mv.id for mv, _ in rows}) == 8
+    for mv, rec in rows:
+        print(f"{mv.label}: A={mv.n_components} n={rec.n} SEP/σ_R={rec.sep_over_sigma_r:.3f} "
+              f"bias p={rec.bias_p:.3f}")
+        assert rec.passed, (mv.label, rec.reasons)
+        assert {k: v for k, v in rec.criteria.items() if k != "rule"} == default
+        assert rec.n >= max(20, 4 * mv.n_components)
+        t = rec.bias * np.sqrt(rec.n) / rec.sep
+        assert 2 * stats.t.sf(abs(t), rec.n - 1) > 0.05
+        assert rec.sep <= rec.statistics["reproducibility"] / LIMIT_FACTOR
+
+
+def test_only_octane_models_drift_and_only_the_drifting_analyzer_signals(demo):
+    """The new component reaches the RON and MON models' predictions and no other model's;
+    the one QC signal comes from AR-IR-02's drift in month 12."""
+    engine, report = demo
+    with session_scope(engine) as s:
+        rows = s.exec(select(ModelVersion.label, RevalidationTrigger)
+                      .join(RevalidationTrigger,
+                            RevalidationTrigger.model_version_id == ModelVersion.id)).all()
+    drifting = {label.split("-")[0] for label, t in rows if t.kind == "coverage_drift"}
+    assert drifting == {"RON", "MON"}
+    signals = [t for _, t in rows if t.kind == "qc_signal"]
+    assert signals and {t.detail["instrument"] for t in signals} == {"AR-IR-02"}
+    month_12 = report.start + timedelta(days=11 * 30.4)
+    assert all(t.raised_at.replace(tzinfo=timezone.utc) >= month_12 for t in signals)
 
 
 def test_reference_values_are_plausible(demo):
