@@ -50,7 +50,7 @@ _LEAD_TEXT = {chr(c): ("-" if _NEGATIVE[c] else "") + str(int(_LEAD[c]))
 _POW10 = 10.0 ** np.arange(16)
 _MAX_DIGITS = 15  # integers below 10**15 < 2**53 are exact as float64, and so are their sums
 _MAX_DUP_CHARS = 10  # a longer DUP token is refused by the line decoder
-_EXACT = 2.0 ** 52  # bound on the running sums of integer ordinates
+_EXACT = 2.0 ** 52  # bound on the ordinates and running sums of a table
 
 _LOWER_E, _LOWER_N, _LOWER_A, _LOWER_I, _LOWER_F = (ord(c) for c in "enaif")
 
@@ -170,8 +170,9 @@ def decode_table(texts: list[str], n: int) -> tuple[np.ndarray, list[float], lis
     op_value = value[ops]
     if is_dif.any() and (op_value != np.round(op_value)).any():
         return None  # fractional differences: the running sums would round differently
-    if np.abs(op_value) @ counts.astype(np.float64) > _EXACT:
-        return None
+    steps_bound = np.abs(op_value[is_dif]) @ counts[is_dif].astype(np.float64)
+    if steps_bound + np.abs(op_value[~is_dif]).max() > _EXACT:
+        return None  # a running sum could leave the integers that float64 holds exactly
 
     # Expand: an absolute value, then its DUP copies as steps of zero; a difference and
     # its DUP copies as that step. y = the run's absolute value + the steps since it.
