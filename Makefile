@@ -1,4 +1,5 @@
-# Specledger: `make demo` builds the demo registry and starts the UI; `make test` runs every check.
+# Specledger: `make demo` builds the demo registry and starts the UI; `make test` runs every check
+# (CI runs it); `make check` is the fast lane: every test not marked slow.
 PYTHON ?= python3
 VENV := .venv
 BIN := $(VENV)/bin
@@ -6,7 +7,7 @@ STAMP := $(VENV)/.installed
 DEMO_DB ?= demo.db
 PORT ?= 8501
 
-.PHONY: demo test bench install clean ui
+.PHONY: demo test check bench install clean ui
 
 $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -20,11 +21,16 @@ demo: $(STAMP)
 	$(BIN)/specledger demo --db $(DEMO_DB) --force
 	SPECLEDGER_DATABASE_URL=$(DEMO_DB) $(BIN)/streamlit run ui/app.py --server.port $(PORT) --server.headless true --browser.gatherUsageStats false
 
+TEST_ENV := OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 MKL_NUM_THREADS=1
+
 test: $(STAMP)
-	OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 MKL_NUM_THREADS=1 $(BIN)/python -m pytest -q -p no:cacheprovider
+	$(TEST_ENV) $(BIN)/python -m pytest -q -p no:cacheprovider
+
+check: $(STAMP)
+	$(TEST_ENV) $(BIN)/python -m pytest -q -p no:cacheprovider -m "not slow"
 
 bench: $(STAMP)
-	OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 MKL_NUM_THREADS=1 $(BIN)/python tests/benchmarks/run_all.py
+	$(TEST_ENV) $(BIN)/python tests/benchmarks/run_all.py
 
 clean:
 	rm -rf $(VENV) *.egg-info .pytest_cache .hypothesis

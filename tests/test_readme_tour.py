@@ -11,6 +11,7 @@ import shlex
 from pathlib import Path
 
 import numpy as np
+import pytest
 from typer.testing import CliRunner
 
 from registry.cli import app
@@ -32,6 +33,7 @@ def tour_lines() -> list[str]:
     return [re.sub(r"\s+#.*$", "", ln).strip() for ln in block.strip().splitlines()]
 
 
+@pytest.mark.slow  # the whole tour: ~10 s of CPU
 def test_the_readme_tour_runs_as_written(tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)  # relative paths of the tour (./spectra/, send.csv, ...) land here
     # 220 referenced samples: the 25 % validation part (55) lets a model of up to 13 components

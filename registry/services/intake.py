@@ -7,7 +7,6 @@ CSV files are streamed chunk by chunk, so memory is bounded by one chunk.
 
 from __future__ import annotations
 
-import functools
 import os
 from dataclasses import dataclass, field
 from datetime import datetime
@@ -28,7 +27,6 @@ from ..storage.spectra_store import (SPECTRUM_COLUMNS, existing_hashes, get_or_c
                                      insert_spectra)
 from ..storage.types import utcnow
 from .context import Actor, audit, authorize
-from . import parse_ahead
 from .references import MAX_REPORTED_ERRORS, ImportRejected
 from ..timeparse import parse_time
 
@@ -48,8 +46,6 @@ class Batch:
     sample_ids: list[str]
     metadata: list[dict]
     lines: list[int | None]
-    #: Content hashes of the rows when the producer computed them (a parsing child does).
-    digests: list[str] | None = None
 
 
 @dataclass
@@ -101,68 +97,6 @@ def read_batches(path: Path, fmt: str = "auto", *, chunk_rows: int = 1000,
         raise InputError(f"unknown format {fmt!r}; use auto, jcamp or csv", field="--input-format")
 
 
-#: Shares of a large CSV file parsed by this process (the first) and by a child process.
-#: This process also stores every spectrum, so it parses the smaller share, and only
-#: while the child has no batch ready (see parse_ahead.interleaved). A second child was
-#: slower on two cores: three busy processes, and pandas' cost per parse call paid thrice.
-_WINDOW_SHARES = (0.35, 0.65)
-
-
-def _batches(path: Path, fmt: str, chunk_rows: int, sample_id_field: str) -> Iterator[Batch]:
-    """The file's batches; a large wide CSV file is parsed in two windows, by this process
-    and a child at once (see :mod:`.parse_ahead`), otherwise inline."""
-    from ..spectra.formats.csv_matrix import split_wide_csv
-
-    if parse_ahead.use_children(path) and (fmt == "csv" or (fmt == "auto" and
-                                                           detect_format(path) == "csv")):
-        windows = split_wide_csv(path, _WINDOW_SHARES, count_lines=False)
-        if windows:
-            mine, *theirs = windows
-            producers = [functools.partial(_window_batches, path, w, chunk_rows) for w in theirs]
-            # Parsed here in small pieces: a big one would keep the child waiting on its pipe.
-            local = functools.partial(_window_batches, path, mine, chunk_rows, 2 * chunk_rows)
-            yield from parse_ahead.interleaved(producers, local=local)
-            return
-    yield from read_batches(path, fmt, chunk_rows=chunk_rows, sample_id_field=sample_id_field)
-
-
-def _per_file(files: list[Path], fmt: str, chunk_rows: int,
-              sample_id_field: str) -> Iterator[tuple[Path, Iterator[Batch]]]:
-    """(file, its batches) in folder order; iterating the batches raises the file's
-    InputError. Many small files are parsed two at a time (see parse_ahead.in_order)."""
-    if not parse_ahead.share_files(files):
-        for path in files:
-            yield path, _batches(path, fmt, chunk_rows, sample_id_field)
-        return
-    whole = functools.partial(_whole_file, fmt=fmt, chunk_rows=chunk_rows,
-                              sample_id_field=sample_id_field)
-    for path, batches, error in parse_ahead.in_order(files, whole):
-        yield path, _replay(batches, error)
-
-
-def _whole_file(path: Path, *, fmt: str, chunk_rows: int, sample_id_field: str) -> list[Batch]:
-    out = list(read_batches(path, fmt, chunk_rows=chunk_rows, sample_id_field=sample_id_field))
-    for batch in out:  # hashed where parsed, to spread the work over both processes
-        batch.digests = content_sha256_rows(batch.axis, batch.Y)
-    return out
-
-
-def _replay(batches: list[Batch] | None, error: InputError | None) -> Iterator[Batch]:
-    if error is not None:
-        raise error
-    yield from batches
-
-
-def _window_batches(path: Path, window: tuple, chunk_rows: int,
-                    parse_rows: int | None = None) -> Iterator[Batch]:
-    label = str(path)
-    for chunk in iter_csv_spectra(path, chunk_rows=chunk_rows, file_label=label, window=window,
-                                  parse_rows=parse_rows):
-        # Hashing here spreads it over the parsing processes instead of the storing one.
-        yield Batch(label, chunk.axis, chunk.Y, list(chunk.sample_ids), list(chunk.metadata),
-                    list(chunk.first_line), content_sha256_rows(chunk.axis, chunk.Y))
-
-
 def _group_records(label: str, recs: list) -> Iterator[Batch]:
     groups: dict[bytes, list] = {}
     for r in recs:
@@ -195,6 +129,15 @@ class _Context:
         self.samples: dict[tuple[int, str], _SampleRef] = {}
         self.sample_details: dict[tuple[int, str], tuple[str, str, object]] = {}
         self.created_samples = 0
+        self.axis_ids: dict[bytes, int] = {}
+
+    def axis_id(self, axis: np.ndarray) -> int:
+        """Id of the stored axis with these values (a folder of files shares one axis;
+        looked up once, not once per file)."""
+        key = np.ascontiguousarray(axis, dtype="<f8").tobytes()
+        if key not in self.axis_ids:
+            self.axis_ids[key] = get_or_create_axis(self.session, axis).id
+        return self.axis_ids[key]
 
     def _load(self, keys: list[tuple[int, str]]) -> None:
         """Cache the stored samples among ``keys`` (batched by site; the external-id index
@@ -259,11 +202,12 @@ def import_spectra(session: Session, actor: Actor, paths: list[str | Path], *,
     seen: set[str] = set()
     vouched: list[tuple[int, str]] = []
     now = utcnow()
-    for path, batches in _per_file(files, fmt, chunk_rows, sample_id_field):
+    for path in files:
         per = {"imported": 0, "skipped": 0}
         summary.per_file[str(path)] = per
         try:
-            for batch in batches:
+            for batch in read_batches(path, fmt, chunk_rows=chunk_rows,
+                                      sample_id_field=sample_id_field):
                 rows = _prepare(ctx, batch, errors, seen, on_duplicate, per, now, actor)
                 if rows and not errors:
                     ids = insert_spectra(session, rows)
@@ -303,9 +247,9 @@ def _prepare(ctx: _Context, batch: Batch, errors: list, seen: set, on_duplicate:
     """Validate one batch and build its rows (:data:`SPECTRUM_COLUMNS` order); problems go
     to ``errors``."""
     session = ctx.session
-    axis_row = get_or_create_axis(session, batch.axis)
+    axis_id = ctx.axis_id(batch.axis)
     Y = np.ascontiguousarray(batch.Y, dtype="<f4")
-    digests = batch.digests if batch.digests is not None else content_sha256_rows(batch.axis, Y)
+    digests = content_sha256_rows(batch.axis, Y)
     source_file = os.path.basename(batch.file)[:400]
     stored = existing_hashes(session, digests)
     rows = []
@@ -372,7 +316,7 @@ def _prepare(ctx: _Context, batch: Batch, errors: list, seen: set, on_duplicate:
         pending.append((key, grade))
         ctx.sample_details.setdefault(key, (str(meta.get("batch") or "")[:120],
                                             str(meta.get("source") or "")[:200], taken_at))
-        rows.append([key, inst.id, axis_row.id, acquired_at, Y[i].tobytes(), digest, source_file,
+        rows.append([key, inst.id, axis_id, acquired_at, Y[i].tobytes(), digest, source_file,
                      str(meta.get("operator") or "")[:120], actor.id, now])
     if errors or not rows:
         return []

@@ -26,6 +26,11 @@ from registry.storage.models import (ModelVersion, Prediction, RevalidationTrigg
                                      User, ValidationRecord)
 from seed_demo.scenario import build_demo
 
+# Every test here builds the demo (the fourteen-month one takes ~20 s of CPU, the
+# determinism and PostgreSQL tests build it two or three times): `make test` runs them,
+# `make check` leaves them out.
+pytestmark = pytest.mark.slow
+
 NOW = datetime(2026, 12, 1, 12, 0, tzinfo=timezone.utc)
 
 

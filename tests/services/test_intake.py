@@ -311,19 +311,14 @@ def test_reviewer_finds_suspect_results_in_the_list(with_samples, tmp_path):
             references.list_references(s, actors["reviewer"], status="odd")
 
 
-def test_large_files_parsed_in_child_processes_store_the_same_and_report_the_same(
-        registry, tmp_path, monkeypatch):
-    """The two-window parse (forked children) must be invisible: same spectra, same hashes,
-    same error location as the inline parse."""
-    from registry.services import parse_ahead
-
+def test_a_csv_import_stores_what_the_reader_reads_and_names_file_lines(registry, tmp_path):
+    """The stored hashes are those of the spectra the CSV reader yields, and a bad cell
+    late in the file is reported on its own file line, with nothing stored."""
     engine, actors = registry
     rng = np.random.default_rng(31)
     rows = [(f"W{k:03d}", "PREM95", "2027-03-01", rng.random(AXIS.size).astype(np.float32))
             for k in range(60)]
     good = csv_file(tmp_path, "good.csv", rows)
-    monkeypatch.setattr(parse_ahead, "PARALLEL_MIN_BYTES", 0)
-    assert parse_ahead.use_children(good)
     with session_scope(engine) as s:
         summary = intake.import_spectra(s, actors["analyst"], [good], instrument="IR-100")
     assert summary.imported == 60
@@ -335,7 +330,6 @@ def test_large_files_parsed_in_child_processes_store_the_same_and_report_the_sam
 
     expected = {r.content_sha256() for c in iter_csv_spectra(good) for r in c.records()}
     assert stored == expected and len(expected) == 60
-    # A bad cell late in the file (second window): the line is the file's own line.
     bad_rows = [(f"X{k:03d}", "PREM95", "2027-03-01", rng.random(AXIS.size).astype(np.float32))
                 for k in range(60)]
     bad = csv_file(tmp_path, "bad.csv", bad_rows)
@@ -353,38 +347,10 @@ def test_large_files_parsed_in_child_processes_store_the_same_and_report_the_sam
     assert snapshot(engine) == before
 
 
-
-def _folder_import(url, actors, folder, monkeypatch, shared: bool):
-    """Import ``folder`` into the registry at ``url``, with the file list shared with a
-    child process or not; returns (summary counts, errors, stored spectrum rows)."""
-    from registry.services import parse_ahead
-    from registry.storage.engine import make_engine
-
-    monkeypatch.setattr(parse_ahead, "FILES_MIN_BYTES", 0)
-    monkeypatch.setattr(parse_ahead, "FILES_MIN_COUNT", 4 if shared else 10**9)
-    assert parse_ahead.share_files(intake.expand_paths([folder])) == shared
-    engine = make_engine(url)
-    counts = errors = None
-    try:
-        with session_scope(engine) as s:
-            summary = intake.import_spectra(s, actors["analyst"], [folder], instrument="IR-100")
-            counts = (summary.imported, summary.skipped, summary.samples_created,
-                      summary.spectrum_ids, summary.per_file)
-    except ImportRejected as exc:
-        errors = [(e.file, e.line, e.field, e.message) for e in exc.errors]
-    with engine.connect() as conn:
-        rows = [tuple(r) for r in conn.execute(text(
-            "SELECT id, sha256, source_file, sample_id FROM spectrum ORDER BY id"))]
-    engine.dispose()
-    return counts, errors, rows
-
-
-@pytest.mark.parametrize("bad_at", [None, 4, 7])  # none; one parsed here; one by the child
-def test_a_folder_shared_with_a_child_imports_exactly_as_one_process_does(
-        registry, tmp_path, monkeypatch, bad_at):
-    """Same ids in folder order, same hashes, same summary, same error and line."""
-    import sqlite3
-
+@pytest.mark.parametrize("bad_at", [None, 7])
+def test_a_folder_imports_in_folder_order_or_names_its_bad_file(registry, tmp_path, bad_at):
+    """Spectrum ids follow the sorted file names; one bad file rejects the folder and is
+    named with the problem, and nothing is stored."""
     engine, actors = registry
     folder = tmp_path / "many"
     folder.mkdir()
@@ -395,17 +361,18 @@ def test_a_folder_shared_with_a_child_imports_exactly_as_one_process_does(
             i = next(j for j, line in enumerate(lines) if line.startswith("##XYDATA")) + 3
             lines[i] = lines[i][:-1] + "?"
             path.write_text("\n".join(lines) + "\n")
-    twin = tmp_path / "twin.db"  # the same starting registry for the shared run
-    with sqlite3.connect(engine.url.database) as a, sqlite3.connect(twin) as b:
-        a.backup(b)
-    a.close()
-    b.close()
-    alone = _folder_import(str(engine.url), actors, folder, monkeypatch, shared=False)
-    shared = _folder_import(f"sqlite:///{twin}", actors, folder, monkeypatch, shared=True)
-    assert shared == alone
-    counts, errors, rows = alone
-    if bad_at is None:
-        assert counts[0] == 12 and [r[2] for r in rows] == [f"s{k:02d}.jdx" for k in range(12)]
-    else:
-        assert counts is None and rows == []
-        assert errors[0][0].endswith(f"s{bad_at:02d}.jdx") and "'?'" in errors[0][3]
+    before = snapshot(engine)
+    try:
+        with session_scope(engine) as s:
+            summary = intake.import_spectra(s, actors["analyst"], [folder], instrument="IR-100")
+    except ImportRejected as exc:
+        assert bad_at is not None and snapshot(engine) == before
+        [error] = exc.errors
+        assert error.file.endswith(f"s{bad_at:02d}.jdx") and "'?'" in error.message
+        assert error.line == i + 1
+        return
+    assert bad_at is None and summary.imported == 12
+    with engine.connect() as conn:
+        rows = conn.execute(text("SELECT id, source_file FROM spectrum ORDER BY id")).all()
+    assert [r[1] for r in rows] == [f"s{k:02d}.jdx" for k in range(12)]
+    assert [r[0] for r in rows] == summary.spectrum_ids

@@ -17,7 +17,7 @@ from registry.errors import FormatError, InputError
 from registry.spectra.formats import (detect_format, iter_csv_spectra, read_spectra_file,
                                       write_csv_spectra, write_jcamp)
 from registry.spectra.record import SpectrumRecord
-from registry.spectra.formats.csv_matrix import split_wide_csv
+from registry.spectra.formats import csv_matrix
 
 float32s = arrays(np.float32, st.integers(1, 40),
                   elements=st.floats(width=32, allow_nan=False, allow_infinity=False))
@@ -158,31 +158,40 @@ def test_detect_format_and_read_spectra_file(tmp_path, ir_record):
         detect_format(odd)
 
 
-@pytest.mark.parametrize("parts", [2, [0.3, 0.7], [1, 1, 5]])
-@pytest.mark.parametrize("count_lines", [True, False])
-def test_windows_read_exactly_what_the_whole_file_reads(tmp_path, parts, count_lines):
-    """Cut into windows of whole lines, a file reads back the same spectra, in order, with
-    the same file lines, whether the windows' first lines are counted up front or later.
-    Reference: the whole-file read of the same reader."""
+@pytest.mark.parametrize("trouble", ["none", "blank line", "inf", "text"])
+def test_blocks_after_a_troubled_one_read_as_pandas_reads_them(tmp_path, monkeypatch, trouble):
+    """Numbers are parsed straight to float32 until a block holds something that needs
+    the cell-by-cell check (a blank row, a non-finite value, text); from that block on the
+    checked parse runs. Either way the spectra and their file lines are those of the
+    reference parser, pandas.read_csv (float64, then rounded to float32), and a bad cell
+    is named by its file line and column."""
+    monkeypatch.setattr(csv_matrix, "_PARSE_BYTES", 7 * (8 * 40 + 64 * 2))  # 7-row blocks
     rng = np.random.default_rng(5)
     axis = np.linspace(4000.0, 650.0, 40)
     records = [SpectrumRecord(f"S{k:03d}", axis, rng.random(40).astype(np.float32),
                               metadata={"grade": "G1"}) for k in range(97)]
     path = tmp_path / "w.csv"
     write_csv_spectra(records, path)
-    whole = [c for c in iter_csv_spectra(path, chunk_rows=10)]
-    windows = split_wide_csv(path, parts, count_lines=count_lines)
-    assert windows[0][0] == 0 and windows[-1][1] == path.stat().st_size
-    assert all(a[1] == b[0] for a, b in zip(windows, windows[1:]))
-    parted = [c for w in windows for c in iter_csv_spectra(path, chunk_rows=10, window=w,
-                                                           parse_rows=7)]
-    ids = lambda chunks: [i for c in chunks for i in c.sample_ids]  # noqa: E731
-    lines = lambda chunks: [n for c in chunks for n in c.first_line]  # noqa: E731
-    assert ids(parted) == ids(whole) and lines(parted) == lines(whole) == list(range(2, 99))
-    assert np.array_equal(np.vstack([c.Y for c in parted]), np.vstack([c.Y for c in whole]))
-
-
-def test_long_form_files_are_not_cut(tmp_path):
-    path = tmp_path / "long.csv"
-    path.write_text("sample_id,x,y\nA,1000,0.1\nA,1001,0.2\n")
-    assert split_wide_csv(path, 2) is None
+    lines = path.read_text().splitlines()
+    # file line 60 is lines[59]: the 59th spectrum, in the ninth 7-row block
+    if trouble == "blank line":
+        lines.insert(59, "")
+    elif trouble in ("inf", "text"):
+        cells = lines[59].split(",")
+        cells[7] = "inf" if trouble == "inf" else "n/a"
+        lines[59] = ",".join(cells)
+    path.write_text("\n".join(lines) + "\n")
+    if trouble in ("inf", "text"):
+        with pytest.raises(FormatError) as err:
+            list(iter_csv_spectra(path, chunk_rows=10))
+        assert (err.value.line, err.value.field) == (60, lines[0].split(",")[7])
+        assert ("not a number" if trouble == "text" else "infinite") in err.value.message
+        return
+    chunks = list(iter_csv_spectra(path, chunk_rows=10))
+    reference = pd.read_csv(path, dtype={"sample_id": str}, skip_blank_lines=True)
+    assert [i for c in chunks for i in c.sample_ids] == list(reference["sample_id"])
+    expected = reference.iloc[:, :1:-1].to_numpy(np.float32)  # axis columns, ascending
+    np.testing.assert_array_equal(np.vstack([c.Y for c in chunks]), expected)
+    first_lines = [n for c in chunks for n in c.first_line]
+    assert first_lines == (list(range(2, 99)) if trouble == "none"
+                           else list(range(2, 60)) + list(range(61, 100)))

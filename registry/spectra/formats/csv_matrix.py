@@ -28,7 +28,7 @@ import re
 import warnings
 from dataclasses import dataclass
 from datetime import date, datetime
-from typing import Iterable, Iterator, Sequence
+from typing import Iterable, Iterator
 
 import numpy as np
 import pandas as pd
@@ -44,7 +44,10 @@ _LONG_FORM_ROWS = 65536  # rows per pandas chunk in long form
 # whole-file read (tests/benchmarks/bench_csv_parse.py).  Parse in blocks of
 # about this many bytes of float64 cells and cut them into chunk_rows chunks.
 _PARSE_BYTES = 64 * 2**20
-_FIRST_ROWS = 1000  # first chunk of a window parsed for another process (see _read_chunks)
+
+
+class _Recheck(Exception):
+    """A block parsed straight to float32 holds a cell that needs the checked parse."""
 
 
 @dataclass
@@ -138,83 +141,60 @@ class _Header:
                          if i != self.sample_pos and i not in numeric]
 
 
-class _Window:
-    """A read-only view of bytes [start, end) of a file, for pandas' C parser."""
+def _read_chunks(path, header: _Header, rows: int, *, numbers: list[int] | None = None,
+                 first_line: int = 2):
+    """pandas C-engine chunks from file line ``first_line`` on; text columns as strings.
 
-    def __init__(self, path, start: int, end: int):
-        self._fh = open(path, "rb")
-        self._fh.seek(start)
-        self._left = end - start
-
-    def read(self, size: int = -1) -> bytes:
-        if self._left <= 0:
-            return b""
-        size = self._left if size is None or size < 0 else min(size, self._left)
-        data = self._fh.read(size)
-        self._left -= len(data)
-        return data
-
-    def close(self) -> None:
-        self._fh.close()
-
-
-def _read_chunks(path, header: _Header, rows: int, window: tuple[int, int, int] | None = None,
-                 first_rows: int | None = None):
-    """pandas C-engine chunks; text columns as strings, number columns inferred.
-
-    ``first_rows`` makes the first chunk smaller than ``rows``, and each next one twice
-    the last, up to ``rows``, so that a consumer in another process gets spectra early
-    and then steadily, while the later, larger chunks keep pandas' cost per chunk low.
-
-    ``window`` = (start byte, end byte, file line of the first byte) limits the parse to
-    whole lines of part of the file (see :func:`split_wide_csv`); line numbers in errors
-    stay those of the file.
+    The ``numbers`` columns are parsed straight to float32 (pandas parses each cell as a
+    float64 and rounds it, as a float64 column cast afterwards would be); a cell that is not
+    a number then raises :class:`_Recheck`. Without ``numbers`` the number columns are inferred,
+    and a column holding any text stays text (see :func:`_numeric`).
+    Line numbers in pandas' errors are file lines (skipped lines count).
     """
-    text_columns = {i: str for i in [header.sample_pos, *header.meta_pos]}
-    source, skip, line_offset = path, 1, 0
-    if window is not None:
-        start, end, first_line = window
-        source = _Window(path, start, end)
-        skip = 1 if start == 0 else 0
-        line_offset = first_line - (2 if start == 0 else 1)
+    dtype = {i: str for i in [header.sample_pos, *header.meta_pos]}
+    dtype.update({i: np.float32 for i in numbers or ()})
+    # header=0 with names: pandas parses the header line and replaces it (cheaper than
+    # skipping it as a row); lines before first_line are skipped as rows.
+    skip = range(1, first_line - 1) if first_line > 2 else None
     try:
         with warnings.catch_warnings():
             # pandas only warns (and drops cells) when the first row is longer
             # than the header; that is a format error here.
             warnings.simplefilter("error", pd.errors.ParserWarning)
             reader = pd.read_csv(
-                source, sep=header.delimiter, header=None, skiprows=skip,
-                names=list(range(len(header.names))), index_col=False, dtype=text_columns,
+                path, sep=header.delimiter, header=0, skiprows=skip,
+                names=list(range(len(header.names))), index_col=False, dtype=dtype,
                 na_filter=False, skip_blank_lines=False, engine="c", chunksize=rows,
                 encoding="utf-8-sig")
         with reader:
             while True:
-                with warnings.catch_warnings():
+                with warnings.catch_warnings(), np.errstate(over="ignore"):
+                    # values beyond the float32 range become inf, reported by the caller
                     warnings.simplefilter("error", pd.errors.ParserWarning)
                     try:
-                        frame = reader.get_chunk(first_rows or rows)
+                        frame = reader.get_chunk()
                     except StopIteration:
                         return
-                if first_rows:
-                    first_rows = first_rows * 2 if first_rows * 2 < rows else None
+                    except ValueError as exc:
+                        if numbers is None or isinstance(exc, (pd.errors.ParserError,
+                                                               UnicodeDecodeError)):
+                            raise
+                        raise _Recheck from None  # a cell of a number column is not a number
                 if len(frame):
                     yield frame
     except pd.errors.ParserWarning:
         raise FormatError(f"a row near the start has more fields than the {len(header.names)} "
                           "columns of the header", file=header.file,
-                          line=2 + line_offset) from None
+                          line=first_line) from None
     except pd.errors.ParserError as exc:
         found = re.search(r"line (\d+)", str(exc))
         message = str(exc).replace("Error tokenizing data. ", "")
         raise FormatError(f"wrong number of fields: {message}", file=header.file,
-                          line=int(found.group(1)) + line_offset if found else None) from None
+                          line=int(found.group(1)) if found else None) from None
     except pd.errors.EmptyDataError:
         return
     except UnicodeDecodeError as exc:
         raise FormatError(f"file is not UTF-8 text ({exc.reason})", file=header.file) from None
-    finally:
-        if window is not None:
-            source.close()
 
 
 def _bad_cell(values: np.ndarray) -> int | None:
@@ -276,9 +256,7 @@ def _metadata_rows(frame: pd.DataFrame, header: _Header) -> list[dict]:
 
 def iter_csv_spectra(path, *, chunk_rows: int = 1000, delimiter: str | None = None,
                      x_unit: str = WAVENUMBER, sample_id_column: str = "sample_id",
-                     file_label: str | None = None,
-                     window: tuple[int, int, int | None] | None = None,
-                     parse_rows: int | None = None) -> Iterator[CsvChunk]:
+                     file_label: str | None = None) -> Iterator[CsvChunk]:
     """Stream the spectra of a CSV file, ``chunk_rows`` spectra at a time.
 
     Parameters
@@ -296,16 +274,6 @@ def iter_csv_spectra(path, *, chunk_rows: int = 1000, delimiter: str | None = No
         Name of the sample id column (case-insensitive).
     file_label : str, optional
         Name used in errors and ``source_file``.
-    window : (int, int, int or None), optional
-        Read only whole lines from byte ``start`` to ``end`` of a wide-form file, the
-        first of them being file line ``line`` (counted when None); see
-        :func:`split_wide_csv`. Line numbers in errors stay those of the file.
-    parse_rows : int, optional
-        Rows per pandas parse call. By default as many as fit in about 64 MB of cells
-        (pandas has a large fixed cost per call with thousands of columns); a window
-        starts with 1,000 rows and doubles, so a reader in another process gets its
-        first spectra early.
-
     Yields
     ------
     CsvChunk
@@ -324,15 +292,7 @@ def iter_csv_spectra(path, *, chunk_rows: int = 1000, delimiter: str | None = No
     label = file_label or os.fspath(path)
     unit = canonical_x_unit(x_unit)
     header = _Header(path, label, delimiter, sample_id_column)
-    if window is not None:
-        # One part of a wide file (split_wide_csv); an empty part is fine.
-        if not header.wide:
-            raise InputError("only wide-form CSV files can be read in parts", field="window")
-        if window[2] is None:
-            window = (window[0], window[1], _line_at(path, window[0]))
-        yield from _iter_wide(path, header, chunk_rows, unit, window, parse_rows)
-        return
-    chunks = (_iter_wide(path, header, chunk_rows, unit, parse_rows=parse_rows) if header.wide
+    chunks = (_iter_wide(path, header, chunk_rows, unit) if header.wide
               else _iter_long(path, header, chunk_rows, unit))
     empty = True
     for chunk in chunks:
@@ -342,56 +302,10 @@ def iter_csv_spectra(path, *, chunk_rows: int = 1000, delimiter: str | None = No
         raise FormatError("no spectra after the header line", file=label, line=2)
 
 
-def split_wide_csv(path, parts: int | Sequence[float], *, delimiter: str | None = None,
-                   sample_id_column: str = "sample_id",
-                   count_lines: bool = True) -> list[tuple[int, int, int | None]] | None:
-    """Cut a wide-form CSV file into windows of whole lines.
-
-    ``parts`` is a number of equal windows or a list of relative sizes. Returns
-    ``[(start byte, end byte, file line of start), ...]`` covering the file (the first
-    window starts at byte 0 and includes the header), for
-    ``iter_csv_spectra(..., window=...)``; None for a long-form file, whose samples span
-    rows and must not be cut. Without ``count_lines`` the line of every window but the
-    first is None, and whoever reads that window counts the lines before it (reading
-    the file once more, which a parallel reader can afford better than the caller).
-    """
-    header = _Header(path, os.fspath(path), delimiter, sample_id_column)
-    shares = [1.0] * parts if isinstance(parts, int) else [float(w) for w in parts]
-    if not header.wide or len(shares) < 2 or min(shares) <= 0:
-        return None
-    size = os.path.getsize(path)
-    cuts = [0]
-    with open(path, "rb") as fh:
-        done = 0.0
-        for share in shares[:-1]:
-            done += share
-            fh.seek(max(int(size * done / sum(shares)), cuts[-1]))
-            fh.readline()  # to the start of the next whole line
-            cuts.append(min(fh.tell(), size))
-    cuts.append(size)
-    windows = [(a, b) for a, b in zip(cuts, cuts[1:])]
-    if not count_lines:
-        return [(a, b, 2 if a == 0 else None) for a, b in windows]
-    # The first window's rows start on line 2 (after the header); later ones where they begin.
-    return [(a, b, 2 if a == 0 else _line_at(path, a)) for a, b in windows]
-
-
-def _line_at(path, offset: int) -> int:
-    """File line (1-based) that starts at byte ``offset``."""
-    line, left = 1, offset
-    with open(path, "rb") as fh:
-        while left > 0:
-            block = fh.read(min(left, 1 << 22))
-            if not block:
-                break
-            line += block.count(b"\n")
-            left -= len(block)
-    return line
-
-
-def _iter_wide(path, header: _Header, chunk_rows: int, unit: str,
-               window: tuple[int, int, int] | None = None,
-               parse_rows: int | None = None) -> Iterator[CsvChunk]:
+def _iter_wide(path, header: _Header, chunk_rows: int, unit: str) -> Iterator[CsvChunk]:
+    """Parse blocks with the numbers straight to float32; from the first block where that
+    fails (a cell that is not a number, a blank row, a non-finite value) on, parse with
+    the number columns inferred and checked cell by cell, which names the bad cell."""
     raw_axis = np.array([float(header.names[i]) for i in header.axis_pos])
     try:
         axis, order = normalise_ascending(raw_axis, np.arange(raw_axis.size), file=header.file,
@@ -403,38 +317,52 @@ def _iter_wide(path, header: _Header, chunk_rows: int, unit: str,
     columns = [header.axis_pos[i] for i in order]  # file columns in ascending-axis order
     # text cells cost a Python string each (~64 bytes), numbers 8 bytes
     row_bytes = 8 * len(columns) + 64 * (1 + len(header.meta_pos))
-    read_rows = parse_rows or max(chunk_rows, _PARSE_BYTES // row_bytes)
-    next_line = 2 if window is None else window[2]
-    # In a window (a child process feeding the storing process), start with one small
-    # chunk so the consumer has work while the rest is parsed.
-    first_rows = min(_FIRST_ROWS, read_rows) if window is not None and not parse_rows else None
-    for frame in _read_chunks(path, header, read_rows, window, first_rows):
-        first_line = next_line
-        next_line += len(frame)
-        ids = _text_column(frame, header.sample_pos)
-        lines = list(range(first_line, first_line + len(frame)))
-        if not all(ids):
-            keep = [i for i in range(len(frame)) if ids[i] or not _is_blank_row(frame, i)]
-            for i in keep:
-                if not ids[i]:
-                    raise FormatError("empty sample id", file=header.file, line=lines[i],
-                                      field=header.names[header.sample_pos])
-            frame = frame.iloc[keep].reset_index(drop=True)
-            ids = [ids[i] for i in keep]
-            lines = [lines[i] for i in keep]
-            if not keep:
-                continue
+    read_rows = max(chunk_rows, _PARSE_BYTES // row_bytes)
+    first_line = 2  # of the next block
+    try:
+        for frame in _read_chunks(path, header, read_rows, numbers=header.axis_pos):
+            yield from _wide_chunks(frame, first_line, header, columns, axis, chunk_rows, unit,
+                                    checked=False)
+            first_line += len(frame)
+        return
+    except _Recheck:
+        pass  # the block that starts at first_line needs the checked parse; earlier ones are out
+    for frame in _read_chunks(path, header, read_rows, first_line=first_line):
+        yield from _wide_chunks(frame, first_line, header, columns, axis, chunk_rows, unit,
+                                checked=True)
+        first_line += len(frame)
+
+
+def _wide_chunks(frame: pd.DataFrame, first_line: int, header: _Header, columns: list[int],
+                 axis: np.ndarray, chunk_rows: int, unit: str, *,
+                 checked: bool) -> Iterator[CsvChunk]:
+    ids = _text_column(frame, header.sample_pos)
+    lines = list(range(first_line, first_line + len(frame)))
+    if not all(ids):
+        keep = [i for i in range(len(frame)) if ids[i] or not _is_blank_row(frame, i)]
+        for i in keep:
+            if not ids[i]:
+                raise FormatError("empty sample id", file=header.file, line=lines[i],
+                                  field=header.names[header.sample_pos])
+        frame = frame.iloc[keep].reset_index(drop=True)
+        ids = [ids[i] for i in keep]
+        lines = [lines[i] for i in keep]
+        if not keep:
+            return
+    if checked:
         frame = _numeric(frame, columns, header, lines)
-        with np.errstate(over="ignore"):  # values beyond float32 become inf, reported below
-            Y = frame.iloc[:, columns].to_numpy(dtype=np.float32)
-        _non_finite(Y, columns, header, lines)
-        metadata = _metadata_rows(frame, header)
-        del frame
-        for start in range(0, len(ids), chunk_rows):
-            stop = start + chunk_rows
-            yield CsvChunk(axis=axis, Y=Y[start:stop], sample_ids=ids[start:stop],
-                           metadata=metadata[start:stop], first_line=lines[start:stop],
-                           x_unit=unit, source_file=header.file)
+    with np.errstate(over="ignore"):  # values beyond float32 become inf, reported below
+        Y = frame.iloc[:, columns].to_numpy(dtype=np.float32)
+    if not checked and not np.isfinite(Y).all():
+        raise _Recheck  # "inf", "nan" or 1e39 in the text: the checked parse says which
+    _non_finite(Y, columns, header, lines)
+    metadata = _metadata_rows(frame, header)
+    del frame
+    for start in range(0, len(ids), chunk_rows):
+        stop = start + chunk_rows
+        yield CsvChunk(axis=axis, Y=Y[start:stop], sample_ids=ids[start:stop],
+                       metadata=metadata[start:stop], first_line=lines[start:stop],
+                       x_unit=unit, source_file=header.file)
 
 
 def _is_blank_row(frame: pd.DataFrame, i: int) -> bool:

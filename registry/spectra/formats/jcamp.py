@@ -42,6 +42,7 @@ from datetime import datetime
 import numpy as np
 
 from registry.errors import FormatError, InputError
+from registry.spectra.formats.asdf import decode_table
 from registry.spectra.axes import (canonical_x_unit, normalise_ascending,
                                    transmittance_to_absorbance)
 from registry.spectra.record import SpectrumRecord
@@ -280,8 +281,22 @@ class _Reader:
         if not table.more:
             raise self.error("##XYDATA has no data lines", line=table.line, field="XYDATA")
 
+        numbers = [number for number, _ in table.more]
+        decoded = decode_table([text for _, text in table.more], n)
+        if decoded is None:  # not plain well-formed ASDF: line by line, naming any problem
+            ys, lines = self.decode_asdf_lines(table, n)
+        else:
+            ys, abscissas, starts = decoded
+            lines = list(zip(numbers, abscissas, starts))
+        x = self.check_xydata_axis(block, lines, n, firstx, lastx, xfactor)
+        y = np.asarray(ys, dtype=np.float64) * yfactor
+        starts = [start for _, _, start in lines]
+        return x, y, lambda i: numbers[max(bisect_right(starts, i) - 1, 0)]
+
+    def decode_asdf_lines(self, table: _Ldr, n: int) -> tuple[list[float], list[tuple]]:
+        """Ordinates and (line, abscissa, index of its first ordinate) per data line."""
         ys: list[float] = []
-        lines: list[tuple[int, float, int]] = []  # (line, abscissa, index of its first ordinate)
+        lines: list[tuple[int, float, int]] = []
         check_next = False
         for number, text in table.more:
             abscissa, values, ends_in_dif = self.decode_asdf_line(text, number, n - len(ys) + 1)
@@ -307,11 +322,7 @@ class _Reader:
         if len(ys) != n:
             raise self.error(f"##NPOINTS={n} but {len(ys)} ordinates were read",
                              line=table.line, field="NPOINTS")
-        x = self.check_xydata_axis(block, lines, n, firstx, lastx, xfactor)
-        y = np.asarray(ys, dtype=np.float64) * yfactor
-        starts = [start for _, _, start in lines]
-        numbers = [number for number, _, _ in lines]
-        return x, y, lambda i: numbers[max(bisect_right(starts, i) - 1, 0)]
+        return ys, lines
 
     def decode_asdf_line(self, text: str, number: int, room: int):
         """Abscissa, ordinates and whether the line ends in DIF form."""
