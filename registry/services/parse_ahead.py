@@ -68,8 +68,10 @@ def _child(produce: Callable[[], Iterator], conn, depth: int) -> None:
 
 
 def _fields(exc: InputError) -> tuple:
-    """An input error as plain, picklable fields (see :func:`_rebuild`)."""
-    return type(exc).__name__, exc.message, exc.file, exc.line, exc.field
+    """An input error as plain, picklable fields (see :func:`_rebuild`), with the fields of
+    each problem it stands for when it lists several (:func:`registry.errors.all_of`)."""
+    parts = tuple(_fields(e) for e in getattr(exc, "errors", None) or ())
+    return type(exc).__name__, exc.message, exc.file, exc.line, exc.field, parts
 
 
 def _start(produce: Callable[[], Iterator], depth: int, name: str):
@@ -89,12 +91,14 @@ def _stop(child, receiver) -> None:
     receiver.close()
 
 
-def _rebuild(kind: str, message: str, file, line, field) -> Exception:
-    if kind == "FormatError":
-        return FormatError(message, file=file, line=line, field=field)
+def _rebuild(kind: str, message: str, file, line, field, parts: tuple = ()) -> Exception:
     if kind == "RegistryError":
         return RegistryError(message)
-    return InputError(message, file=file, line=line, field=field)
+    exc = (FormatError if kind == "FormatError" else InputError)(message, file=file, line=line,
+                                                                 field=field)
+    if parts:
+        exc.errors = [_rebuild(*p) for p in parts]
+    return exc
 
 
 def _can_fork() -> bool:

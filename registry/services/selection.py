@@ -184,12 +184,12 @@ def _check_request(method, n, budget, pool, metric, explained_variance, n_compon
         raise InputError(f"unknown method {method!r}; use one of {', '.join(METHODS)}",
                          field="--method")
     if (n is None) == (budget is None):
-        raise InputError("give exactly one of --n N (exact count) or --budget AMOUNT",
+        raise InputError("give either a number of samples or a budget, not both",
                          field="--n/--budget")
     if n is not None and (isinstance(n, bool) or int(n) != n or n < 1):
-        raise InputError(f"--n must be a positive whole number, got {n!r}", field="--n")
+        raise InputError(f"the number of samples must be a positive whole number, got {n!r}", field="--n")
     if budget is not None and not (math.isfinite(budget) and budget > 0):
-        raise InputError(f"--budget must be a positive amount, got {budget!r}", field="--budget")
+        raise InputError(f"the budget must be a positive amount, got {budget!r}", field="--budget")
     if method == "duplex" and n is not None and n < 4:
         raise InputError("duplex needs at least 4 picks (two for calibration, two for "
                          "validation)", field="--n")
@@ -205,7 +205,7 @@ def _check_request(method, n, budget, pool, metric, explained_variance, n_compon
         raise InputError(f"components must be a positive whole number or 'model', got "
                          f"{n_components!r}", field="--components")
     if since is not None and until is not None and as_utc(since) >= as_utc(until):
-        raise InputError("--since must be before --until", field="--since")
+        raise InputError("the start date must be before the end date", field="--since")
 
 
 # --------------------------------------------------------------------------- data gathering
@@ -407,7 +407,7 @@ def run_selection(session: Session, actor: Actor, *, property_codes: list[str], 
     models = {p.code: current_model(session, p, grade_row) for p in props}
     space_model = next((models[c] for c in codes if models[c] is not None), None)
     if n_components == "model" and space_model is None:
-        raise InputError("--components model needs a current model for the property and grade",
+        raise InputError("components taken from the model need a current model for the property and grade",
                          field="--components")
     trained = {c: load_trained(mv) for c, mv in models.items() if mv is not None}
     space_trained = trained[next(c for c in codes if models[c] is space_model)] if space_model else None
@@ -462,7 +462,7 @@ def run_selection(session: Session, actor: Actor, *, property_codes: list[str], 
                         for i in range(len(universe))], dtype=bool)
     if pool == "outside-coverage":
         if not trained:
-            raise InputError(f"--pool outside-coverage needs a current model for "
+            raise InputError(f"the outside-coverage pool needs a current model for "
                              f"{'/'.join(codes)} on grade {grade_row.code}; there is none",
                              field="--pool")
         pool_rows = np.flatnonzero(flagged)
@@ -498,7 +498,7 @@ def run_selection(session: Session, actor: Actor, *, property_codes: list[str], 
     if n is not None:
         k = int(n)
         if k > n_pool:
-            raise InputError(f"--n {k} but the pool has only {n_pool} candidate samples",
+            raise InputError(f"{k} samples asked for but the pool has only {n_pool} candidate samples",
                              field="--n")
     else:
         k = int(budget_positions(np.full(n_pool, cost), budget).size)

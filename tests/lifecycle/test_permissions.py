@@ -23,7 +23,7 @@ from tests.lifecycle.brief import BRIEF_ACTIONS, BRIEF_ROLES, brief_allows
 def test_action_enum_is_the_briefs_list():
     # project brief: the registry's user actions
     assert sorted(a.value for a in Action) == sorted(BRIEF_ACTIONS)
-    assert len(BRIEF_ACTIONS) == len(set(BRIEF_ACTIONS)) == 30
+    assert len(BRIEF_ACTIONS) == len(set(BRIEF_ACTIONS)) == 31  # 30 + user_reactivate (decided)
 
 
 def test_roles_are_the_briefs_five():
