@@ -100,6 +100,18 @@ def form_with(page, button: str):
     return page.get_by_test_id("stForm").filter(has=page.get_by_role("button", name=button))
 
 
+def test_the_first_page_of_a_fresh_server_hides_the_framework_menus(served):
+    # the first test against a server just started: the very first run sets the toolbar mode
+    context = served["browser"].new_context()
+    page = context.new_page()
+    page.goto(served["url"])
+    expect(page.get_by_label("User name")).to_be_visible(timeout=60_000)
+    browser.wait_idle(page)
+    assert browser.toolbar_items(page) == {"deploy": 0, "menu": 0}
+    assert browser.problems_on(page) == []
+    context.close()
+
+
 def test_reviewer_approves_the_version_waiting_for_review(served):
     context, page = session_as(served, "reviewer")
     assert browser.toolbar_items(page) == {"deploy": 0, "menu": 0}
