@@ -118,8 +118,13 @@ def may(action: Action) -> bool:
 
 
 def field_label(field: str | None) -> str:
-    """A field or option name as a person reads it: ``--on-duplicate`` -> "On duplicate"."""
-    text = (field or "").lstrip("-").replace("_", " ").replace("-", " ").strip()
+    """A field or option name as a person reads it: ``--on-duplicate`` -> "On duplicate",
+    ``NAME`` -> "Name", ``--n/--budget`` -> "N or budget"."""
+    words = []
+    for part in (field or "").split("/"):
+        text = part.lstrip("-").replace("_", " ").replace("-", " ").strip()
+        words.append(text.lower() if text.isupper() else text)  # NAME: an argument placeholder
+    text = " or ".join(w for w in words if w)
     return text[:1].upper() + text[1:]
 
 
