@@ -84,8 +84,6 @@ def reference_methods(session: Session, actor: Actor) -> list[dict]:
     props = {p.id: p.code for p in session.exec(select(Property)).all()}
     rows = [{"property": props.get(m.property_id, ""), "code": m.code, "name": m.name,
              "r": _precision_text(m.repeatability), "R": _precision_text(m.reproducibility),
-             "r_constant": (m.repeatability or {}).get("kind") == "constant",
-             "R_constant": (m.reproducibility or {}).get("kind") == "constant",
              "cost": m.cost, "currency": m.currency, "turnaround_days": m.turnaround_days,
              "active": bool(m.active)}
             for m in session.exec(select(ReferenceMethod)).all()]
@@ -306,22 +304,20 @@ def spectra_preview(session: Session, actor: Actor, spectrum_ids: list[int], *,
     if isinstance(limit, bool) or not isinstance(limit, int) or limit < 1:
         raise InputError(f"limit must be a whole number ≥ 1, got {limit!r}", field="limit")
     ids = [int(i) for i in spectrum_ids][:limit]
-    about = {sid: (ext, serial) for sid, ext, serial in session.exec(
-        select(Spectrum.id, Sample.external_id, Instrument.serial)
+    about = {sid: (axis_id, ext, serial) for sid, axis_id, ext, serial in session.exec(
+        select(Spectrum.id, Spectrum.axis_id, Sample.external_id, Instrument.serial)
         .join(Sample, Sample.id == Spectrum.sample_id)
         .join(Instrument, Instrument.id == Spectrum.instrument_id)
         .where(Spectrum.id.in_(ids))).all()} if ids else {}
     missing = [i for i in ids if i not in about]
     if missing:
         raise NotFoundError(f"no spectrum {missing[0]}")
-    axis_of = dict(session.exec(select(Spectrum.id, Spectrum.axis_id)
-                                .where(Spectrum.id.in_(ids))).all()) if ids else {}
     curves: dict[int, dict] = {}
-    for axis_id in sorted(set(axis_of.values())):
-        group = [i for i in ids if axis_of[i] == axis_id]
+    for axis_id in sorted({a for a, _, _ in about.values()}):
+        group = [i for i in ids if about[i][0] == axis_id]  # load_matrix wants one axis
         X, axis_row = load_matrix(session, group)
         x = axis_values(axis_row)
         for sid, y in zip(group, X):
-            curves[sid] = {"id": sid, "sample": about[sid][0], "instrument": about[sid][1],
+            curves[sid] = {"id": sid, "sample": about[sid][1], "instrument": about[sid][2],
                            "x": x, "y": np.asarray(y, dtype=float)}
     return {"total": len(spectrum_ids), "unit": "1/CM", "spectra": [curves[i] for i in ids]}

@@ -23,6 +23,10 @@ def safe_name(name: str) -> str:
     return Path(name).name or "upload"
 
 
+#: Blues and greys in turn (the app's neutral palette), so no line reads as a warning.
+SPECTRUM_LINES = ("#2f5d8a", "#8a8a8a", "#5b7fa6", "#3a3a3a", "#86a8c8", "#5b5b5b")
+
+
 def spectra_figure(preview: dict) -> go.Figure:
     """The imported spectra as lines, wavenumber falling left to right (the infrared habit)."""
     fig = go.Figure()
@@ -38,9 +42,6 @@ def spectra_figure(preview: dict) -> go.Figure:
                       yaxis_title="absorbance", showlegend=shown <= 12)
     return fig
 
-
-#: Blues and greys in turn (the app's neutral palette), so no line reads as a warning.
-SPECTRUM_LINES = ("#2f5d8a", "#8a8a8a", "#5b7fa6", "#3a3a3a", "#86a8c8", "#5b5b5b")
 
 #: What the page calls the service's rule for a spectrum whose content is already stored.
 DUPLICATE_CHOICES = {"refuse the whole import": "error", "skip them": "skip"}
