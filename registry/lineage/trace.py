@@ -531,7 +531,8 @@ def build_trace(session: Session, *, prediction_id: int | None = None, sample: s
     """
     roots = [prediction_id is not None, sample is not None, model is not None]
     if sum(roots) != 1:
-        raise InputError("give exactly one of a prediction, a sample (with a property) or a model version",
+        raise InputError("give exactly one of a prediction, a sample (with a property) or a "
+                         "model version",
                          field="--prediction")
     if sample is not None and not property_code:
         raise InputError("tracing a sample needs a property", field="--property")
