@@ -53,6 +53,23 @@ class FormatError(InputError):
     """A spectrum or results file that does not follow its format."""
 
 
+def all_of(problems: list[InputError]) -> InputError:
+    """One error standing for several problems found in one pass: the first, its message
+    counting the others, with every one in ``errors`` so a caller can list them all."""
+    first = problems[0]
+    if len(problems) == 1:
+        return first
+    out = type(first)(f"{first.message} (and {len(problems) - 1} more problem(s))",
+                      file=first.file, line=first.line, field=first.field)
+    out.errors = list(problems)
+    return out
+
+
+def each_problem(exc: InputError) -> list[InputError]:
+    """The problems an error stands for (see :func:`all_of`)."""
+    return list(getattr(exc, "errors", None) or [exc])
+
+
 class NotFoundError(RegistryError):
     """A named object (sample, model version, instrument, ...) does not exist."""
 

@@ -25,7 +25,11 @@ PAGES = [
     ("pages/due.py", "Due", ":material/event:"),
     ("pages/trace.py", "Trace", ":material/account_tree:"),
     ("pages/imports.py", "Import", ":material/upload_file:"),
+    ("pages/admin.py", "Admin", ":material/admin_panel_settings:"),
 ]
+#: The framework's deploy button and developer menu are not for the lab's users. Set here,
+#: not only in .streamlit/config.toml, which is read from the working directory alone.
+TOOLBAR_MODE = "minimal"
 
 
 def sign_in() -> None:
@@ -33,6 +37,11 @@ def sign_in() -> None:
     sign_in_form()
 
 
+if st.get_option("client.toolbarMode") != TOOLBAR_MODE:
+    # The option reaches the browser with each run's start message, so the run that sets
+    # it first starts over (once per server process) before anything is drawn.
+    st.set_option("client.toolbarMode", TOOLBAR_MODE)
+    st.rerun()
 st.set_page_config(page_title="Specledger", layout="wide")
 if not check_registry():
     st.stop()

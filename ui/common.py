@@ -10,11 +10,13 @@ from __future__ import annotations
 
 import logging
 from datetime import datetime
+from pathlib import Path
 from typing import Any, Callable
 
+import pandas as pd
 import streamlit as st
 
-from registry.errors import RegistryError
+from registry.errors import InputError, RegistryError
 from registry.lifecycle.permissions import Action, is_allowed
 from registry.services.context import Actor
 from registry.storage.engine import get_engine, mask_url, resolve_url, session_scope
@@ -114,20 +116,63 @@ def may(action: Action) -> bool:
     return a is not None and is_allowed(a.roles, action)
 
 
-def show_error(exc: RegistryError) -> None:
-    """The error's message; every line of an all-or-nothing import that was refused."""
-    st.error(str(exc))
+def field_label(field: str | None) -> str:
+    """A field or option name as a person reads it: ``--on-duplicate`` -> "On duplicate",
+    ``NAME`` -> "Name", ``--n/--budget`` -> "N or budget"."""
+    words = []
+    for part in (field or "").split("/"):
+        text = part.lstrip("-").replace("_", " ").replace("-", " ").strip()
+        words.append(text.lower() if text.isupper() else text)  # NAME: an argument placeholder
+    text = " or ".join(w for w in words if w)
+    return text[:1].upper() + text[1:]
+
+
+def _file_label(file: str | None, names: dict[str, str] | None) -> str:
+    """The name the user knows a file by: the uploaded name, never a server path."""
+    if not file:
+        return ""
+    if names:
+        for path, name in names.items():
+            file = file.replace(path, name)
+        return file
+    return Path(file).name or file
+
+
+def problem_row(exc: Exception, names: dict[str, str] | None = None) -> dict[str, Any]:
+    """One problem as table cells (file, line, field, problem); blanks rather than "None"."""
+    if not isinstance(exc, InputError):
+        return {"file": "", "line": "", "field": "", "problem": str(exc)}
+    message = exc.message
+    for path, name in (names or {}).items():
+        message = message.replace(path, name)
+    return {"file": _file_label(exc.file, names), "line": "" if exc.line is None else str(exc.line),
+            "field": field_label(exc.field), "problem": message}
+
+
+def readable(exc: Exception, names: dict[str, str] | None = None) -> str:
+    """An error's message located for a person: "file, line 3, Reason: what is wrong"."""
+    row = problem_row(exc, names)
+    where = ", ".join(x for x in (row["file"], f"line {row['line']}" if row["line"] else "",
+                                  row["field"]) if x)
+    return f"{where}: {row['problem']}" if where else row["problem"]
+
+
+def show_error(exc: RegistryError, names: dict[str, str] | None = None) -> None:
+    """The error's message; every problem of an all-or-nothing import that was refused, as a
+    table. ``names`` maps server-side file paths to the names the user uploaded."""
+    st.error(readable(exc, names))
     lines = getattr(exc, "errors", None)
     if lines:
         st.markdown(f"**{len(lines)} problem(s) found:**")
-        st.code("\n".join(e.located() if hasattr(e, "located") else str(e) for e in lines),
-                language=None)
+        st.dataframe(pd.DataFrame([problem_row(e, names) for e in lines]), hide_index=True)
 
 
-def call(fn: Callable[..., Any], *args: Any, with_actor: bool = True, **kwargs: Any) -> Any:
+def call(fn: Callable[..., Any], *args: Any, with_actor: bool = True,
+         names: dict[str, str] | None = None, **kwargs: Any) -> Any:
     """Run ``fn(session, actor, *args, **kwargs)`` in one transaction.
 
-    Returns its result, or :data:`FAILED` after showing the error.
+    Returns its result, or :data:`FAILED` after showing the error (``names``: see
+    :func:`show_error`).
     """
     try:
         with session_scope(engine()) as session:
@@ -135,7 +180,7 @@ def call(fn: Callable[..., Any], *args: Any, with_actor: bool = True, **kwargs: 
                 return fn(session, actor(), *args, **kwargs)
             return fn(session, *args, **kwargs)
     except RegistryError as exc:
-        show_error(exc)
+        show_error(exc, names)
         return FAILED
     except Exception as exc:  # never a traceback on the page; the server log keeps it
         log.exception("unexpected error in %s", getattr(fn, "__name__", fn))

@@ -35,6 +35,8 @@ Choices not spelled out by the duties above, and why:
   requalification happen in the lab, and an event raises a revalidation
   trigger, so the lab manager must be able to record it.
 * ``grade_add``: admin, as master data alongside properties and methods.
+* ``user_reactivate``: admin, the undoing of ``user_deactivate`` (a locked account
+  unlocked).
 * ``correct_reference``: analyst; the correction is data entry, while
   deciding that a suspect result is wrong is the reviewer's
   ``resolve_suspect_reference``.
@@ -79,6 +81,7 @@ class Action(StrEnum):
 
     USER_ADD = "user_add"
     USER_DEACTIVATE = "user_deactivate"
+    USER_REACTIVATE = "user_reactivate"
     SITE_ADD = "site_add"
     INSTRUMENT_ADD = "instrument_add"
     INSTRUMENT_EVENT = "instrument_event"
@@ -132,6 +135,7 @@ _ADMIN, _MGR, _ANALYST, _REVIEWER, _AUDITOR = (
 PERMISSIONS: dict[Action, frozenset[Role]] = {
     Action.USER_ADD: _roles(_ADMIN),
     Action.USER_DEACTIVATE: _roles(_ADMIN),
+    Action.USER_REACTIVATE: _roles(_ADMIN),
     Action.SITE_ADD: _roles(_ADMIN),
     Action.INSTRUMENT_ADD: _roles(_ADMIN),
     Action.INSTRUMENT_EVENT: _roles(_ADMIN, _MGR),
@@ -166,6 +170,7 @@ PERMISSIONS: dict[Action, frozenset[Role]] = {
 ACTION_PHRASES: dict[Action, str] = {
     Action.USER_ADD: "add users",
     Action.USER_DEACTIVATE: "deactivate users",
+    Action.USER_REACTIVATE: "reactivate users",
     Action.SITE_ADD: "add sites",
     Action.INSTRUMENT_ADD: "add instruments",
     Action.INSTRUMENT_EVENT: "record instrument events",

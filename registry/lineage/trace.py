@@ -525,10 +525,11 @@ def build_trace(session: Session, *, prediction_id: int | None = None, sample: s
     """
     roots = [prediction_id is not None, sample is not None, model is not None]
     if sum(roots) != 1:
-        raise InputError("give exactly one of --prediction, --sample (with --property) or --model",
+        raise InputError("give exactly one of a prediction, a sample (with a property) or a "
+                         "model version",
                          field="--prediction")
     if sample is not None and not property_code:
-        raise InputError("--sample needs --property", field="--property")
+        raise InputError("tracing a sample needs a property", field="--property")
     now = as_utc(now) or utcnow()
     lk = _Lookups(session)
     last = session.execute(select(AuditEvent.id, AuditEvent.hash)
@@ -542,7 +543,7 @@ def build_trace(session: Session, *, prediction_id: int | None = None, sample: s
                       "validation_records_hash_ok": None, "signatures_match_content": None,
                       "altered": [],
                       "note": "Stored content checked against its hash columns; "
-                              "`specledger audit verify` also checks the audit chain."},
+                              "verifying the audit trail also checks the hash chain itself."},
         "audit": {"events": last[0] if last else 0, "head": last[1] if last else None},
     }
     if prediction_id is not None:

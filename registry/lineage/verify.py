@@ -63,6 +63,8 @@ class Problem:
     entity_id: int | None
     message: str
     label: str = ""  # e.g. the sample id or model label, for the reader
+    #: The audit event that vouched for (or recorded) the entity, when one did.
+    event: int | None = None
 
     def text(self) -> str:
         who = f"{self.entity_type} {self.entity_id}" if self.entity_id is not None else self.entity_type
@@ -70,7 +72,7 @@ class Problem:
 
     def to_json(self) -> dict[str, Any]:
         return {"entity_type": self.entity_type, "entity_id": self.entity_id,
-                "label": self.label, "message": self.message}
+                "label": self.label, "message": self.message, "vouched_by_event": self.event}
 
 
 @dataclass
@@ -202,7 +204,8 @@ def _compare(report: VerifyReport, vouched: _Vouched, kind: str, entity_id: int,
     seen = vouched.hashes[kind].pop(entity_id, None)
     if stored is not None and recomputed != stored:
         report.content_problems.append(Problem(
-            kind, entity_id, "stored content no longer matches its recorded hash (altered)", label))
+            kind, entity_id, "stored content no longer matches its recorded hash (altered)", label,
+            seen[1] if seen else None))
     elif seen is None:
         report.content_problems.append(Problem(
             kind, entity_id, "not vouched for by any audit event (written outside the registry)",
@@ -210,7 +213,7 @@ def _compare(report: VerifyReport, vouched: _Vouched, kind: str, entity_id: int,
     elif seen[0] != recomputed:
         report.content_problems.append(Problem(
             kind, entity_id, f"content differs from what audit event {seen[1]} vouched for "
-                             "(content and hash column both changed)", label))
+                             "(content and hash column both changed)", label, seen[1]))
 
 
 def _batches(session: Session, cols: tuple, key, size: int) -> Iterator[list]:
@@ -349,11 +352,11 @@ def _check_predictions(session: Session, report: VerifyReport, vouched: _Vouched
             elif (seen[0], seen[2]) != (sid, value) or (seen[1] is not None and seen[1] != mid):
                 report.content_problems.append(Problem(
                     "prediction", pid, f"value, spectrum or model differs from what audit event "
-                                       f"{seen[3]} recorded (altered)"))
+                                       f"{seen[3]} recorded (altered)", event=seen[3]))
     for pid, seen in sorted(recorded.items()):
         report.content_problems.append(Problem(
             "prediction", pid, f"recorded by audit event {seen[3]} but no longer in the "
-                               "registry (deleted)"))
+                               "registry (deleted)", event=seen[3]))
     report.checked["prediction"] = n
 
 
@@ -400,7 +403,7 @@ def verify_registry(session: Session) -> VerifyReport:
         for entity_id, (_, seq) in sorted(vouched.hashes[kind].items()):
             report.content_problems.append(Problem(
                 kind, entity_id, f"vouched for by audit event {seq} but no longer in the "
-                                 "registry (deleted)"))
+                                 "registry (deleted)", event=seq))
     _name_samples(session, report, spectrum_sample, result_sample)
     report.seconds = time.perf_counter() - started
     return report

@@ -61,9 +61,24 @@ def deactivate_user(session: Session, actor: Actor, name: str) -> User:
     user = get_user(session, name)
     if user.id == actor.id:
         raise InputError("an admin cannot deactivate their own account", field="NAME")
+    if not user.active:
+        raise InputError(f"user {name!r} is deactivated already", field="NAME")
     user.active = False
     session.add(user)
     audit(session, actor, Action.USER_DEACTIVATE, entity_type="user", entity_id=user.id,
+          data={"name": name})
+    return user
+
+
+def reactivate_user(session: Session, actor: Actor, name: str) -> User:
+    """Unlock a deactivated account: its user may sign in again."""
+    authorize(actor, Action.USER_REACTIVATE)
+    user = get_user(session, name)
+    if user.active:
+        raise InputError(f"user {name!r} is active already", field="NAME")
+    user.active = True
+    session.add(user)
+    audit(session, actor, Action.USER_REACTIVATE, entity_type="user", entity_id=user.id,
           data={"name": name})
     return user
 

@@ -90,9 +90,9 @@ def create_calibration_set(session: Session, actor: Actor, name: str, *, propert
         raise InputError(f"calibration set {name!r} already exists (frozen sets never change; "
                          "choose a new name)", field="NAME")
     if bool(sample_external_ids) == bool(all_referenced):
-        raise InputError("give either --samples FILE or --all-referenced", field="--samples")
+        raise InputError("give either a list of samples or all referenced samples", field="--samples")
     if validation and validation_external_ids:
-        raise InputError("give either --validation or --validation-samples, not both",
+        raise InputError("give either a validation rule or a list of validation samples, not both",
                          field="--validation")
     prop = get_property(session, property_code)
     grade = get_grade(session, grade_code) if grade_code else None

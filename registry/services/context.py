@@ -34,7 +34,7 @@ class Actor:
 def authorize(actor: Actor | None, action: Action) -> Actor:
     """Refuse unless ``actor`` holds a role allowed to perform ``action``."""
     if actor is None:
-        raise PermissionDenied(f"{action.value} needs an authenticated user (use --as NAME)")
+        raise PermissionDenied(f"{action.value} needs a signed-in user")
     require(actor.roles, action, user=actor.name)
     return actor
 

@@ -16,7 +16,7 @@ from typing import Callable, Iterator
 import numpy as np
 from sqlmodel import Session, select
 
-from ..errors import InputError, NotFoundError
+from ..errors import InputError, NotFoundError, each_problem
 from ..lifecycle.permissions import Action
 from ..spectra.axes import WAVENUMBER
 from ..spectra.formats import detect_format, iter_csv_spectra, read_jcamp
@@ -189,7 +189,7 @@ def import_spectra(session: Session, actor: Actor, paths: list[str | Path], *,
     """
     authorize(actor, Action.IMPORT_SPECTRA)
     if on_duplicate not in DUPLICATE_POLICIES:
-        raise InputError("--on-duplicate must be error or skip", field="--on-duplicate")
+        raise InputError("the rule for spectra already stored must be error or skip", field="--on-duplicate")
     default_inst = None
     if instrument:
         default_inst = session.exec(select(Instrument).where(Instrument.serial == instrument)).first()
@@ -219,9 +219,11 @@ def import_spectra(session: Session, actor: Actor, paths: list[str | Path], *,
                 if len(errors) >= MAX_REPORTED_ERRORS:
                     break
         except InputError as exc:
-            if exc.file is None:
-                exc = InputError(exc.message, file=str(path), line=exc.line, field=exc.field)
-            errors.append(exc)
+            for problem in each_problem(exc):  # a file may report several bad lines at once
+                if problem.file is None:
+                    problem = InputError(problem.message, file=str(path), line=problem.line,
+                                         field=problem.field)
+                errors.append(problem)
         if any(e.file == str(path) for e in errors):
             summary.rejected.append(str(path))
         if len(errors) >= MAX_REPORTED_ERRORS:
@@ -266,7 +268,7 @@ def _prepare(ctx: _Context, batch: Batch, errors: list, seen: set, on_duplicate:
         inst = ctx.instruments.get(serial) if serial else ctx.default_instrument
         if inst is None:
             msg = (f"unknown instrument {serial!r}" if serial else
-                   "no instrument: pass --instrument SERIAL or give an instrument column")
+                   "no instrument: name the instrument or give an instrument column")
             errors.append(InputError(msg, field="instrument", **where))
             continue
         if digest in seen or digest in stored:
@@ -275,7 +277,7 @@ def _prepare(ctx: _Context, batch: Batch, errors: list, seen: set, on_duplicate:
                 continue
             what = "earlier in this import" if digest in seen else f"as spectrum {stored.get(digest)}"
             errors.append(InputError(f"spectrum of sample {sid!r} is identical to one already stored "
-                                     f"({what}); use --on-duplicate skip to ignore it",
+                                     f"({what}); choose to skip spectra already stored to ignore it",
                                      field="data", **where))
             continue
         seen.add(digest)

@@ -189,8 +189,8 @@ def validate_model(session: Session, actor: Actor, label: str, *, calset_name: s
         raise InputError(f"calibration set {cs.name} is for another property", field="--calset")
     role = None if calset_name else "val"
     if not members_of(session, cs, role):
-        raise InputError(f"calibration set {cs.name} has no validation members; give "
-                         "--calset with an independent set", field="--calset")
+        raise InputError(f"calibration set {cs.name} has no validation members; name "
+                         "an independent calibration set to validate on", field="--calset")
     X, y_spec_ref, groups, axis_row, members = calibration_data(session, cs, role)
     trained = load_trained(mv)
     X = on_axis(X, axis_values(axis_row), trained.axis)

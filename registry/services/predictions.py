@@ -66,7 +66,7 @@ def predict(session: Session, actor: Actor, label: str, *, spectrum_ids: list[in
     if is_terminal(mv.state):
         raise StateError(f"model {mv.label} is {mv.state}; it no longer predicts")
     if bool(spectrum_ids) == bool(files):
-        raise InputError("give either --spectrum IDs or --file PATH", field="--spectrum")
+        raise InputError("give either stored spectrum ids or spectrum files", field="--spectrum")
     if files:
         from .intake import import_spectra
 

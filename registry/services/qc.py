@@ -58,7 +58,7 @@ def _material_property(session: Session, inst: Instrument, material: str,
         raise InputError(f"first QC result of {material!r} on {inst.serial}: give its property",
                          field="--property")
     raise InputError(f"material {material!r} on {inst.serial} is charted for several properties; "
-                     "give --property", field="--property")
+                     "name the property", field="--property")
 
 
 def _active_model(session: Session, inst: Instrument, prop: Property,
@@ -73,7 +73,7 @@ def _active_model(session: Session, inst: Instrument, prop: Property,
                          + (f" (grade {grade_code})" if grade_code else ""))
     if len(found) > 1:
         raise InputError(f"{len(found)} models for {prop.code} are active on {inst.serial} "
-                         f"({', '.join(m.label for m in found)}); give --grade", field="--grade")
+                         f"({', '.join(m.label for m in found)}); name the grade", field="--grade")
     return found[0]
 
 

@@ -70,7 +70,7 @@ def _lookup_sample(session: Session, external_id: str, site: Site | None) -> Sam
         q = q.where(Sample.site_id == site.id)
     rows = session.exec(q).all()
     if len(rows) > 1:
-        raise InputError(f"sample {external_id!r} exists at several sites; pass --site")
+        raise InputError(f"sample {external_id!r} exists at several sites; name the site")
     return rows[0] if rows else None
 
 

@@ -63,7 +63,7 @@ def due_list(session: Session, actor: Actor, within_days: int | None = None,
     authorize(actor, Action.VIEW)
     if within_days is not None and (isinstance(within_days, bool) or int(within_days) != within_days
                                     or within_days < 0):
-        raise InputError(f"--within must be a whole number of days ≥ 0, got {within_days!r}",
+        raise InputError(f"the look-ahead must be a whole number of days ≥ 0, got {within_days!r}",
                          field="--within")
     now = as_utc(now) if now is not None else utcnow()
     props = {p.id: p.code for p in session.exec(select(Property)).all()}
@@ -93,7 +93,8 @@ def due_list(session: Session, actor: Actor, within_days: int | None = None,
 
 def _whole(value: Any, name: str, minimum: int) -> int:
     if isinstance(value, bool) or not isinstance(value, int) or value < minimum:
-        raise InputError(f"{name} must be a whole number ≥ {minimum}, got {value!r}", field=name)
+        what = name.lstrip("-").replace("-", " ")  # an option name, said in words
+        raise InputError(f"{what} must be a whole number ≥ {minimum}, got {value!r}", field=name)
     return value
 
 
@@ -119,7 +120,7 @@ def set_policy(session: Session, actor: Actor, property: str, grade: str | None,
                              field="--coverage-threshold")
         changes["coverage_threshold"] = t
     if not changes:
-        raise InputError("nothing to change: give --interval-days or a coverage setting",
+        raise InputError("nothing to change: give an interval or a coverage setting",
                          field="--interval-days")
     row = session.exec(select(RevalidationPolicy).where(
         RevalidationPolicy.property_id == prop.id,

@@ -143,12 +143,12 @@ def check_request(*, property_codes: list[str], grade: str, method: str, n: int 
         raise InputError(f"unknown method {method!r}; use one of {', '.join(METHODS)}",
                          field="--method")
     if (n is None) == (budget is None):
-        raise InputError("give exactly one of --n N (exact count) or --budget AMOUNT",
+        raise InputError("give either a number of samples or a budget, not both",
                          field="--n/--budget")
     if n is not None and (isinstance(n, bool) or int(n) != n or n < 1):
-        raise InputError(f"--n must be a positive whole number, got {n!r}", field="--n")
+        raise InputError(f"the number of samples must be a positive whole number, got {n!r}", field="--n")
     if budget is not None and not (math.isfinite(budget) and budget > 0):
-        raise InputError(f"--budget must be a positive amount, got {budget!r}", field="--budget")
+        raise InputError(f"the budget must be a positive amount, got {budget!r}", field="--budget")
     if method == "duplex" and n is not None and n < DUPLEX_MIN_PICKS:
         raise InputError(f"duplex needs at least {DUPLEX_MIN_PICKS} picks (two for calibration, "
                          "two for validation)", field="--n")
@@ -165,7 +165,7 @@ def check_request(*, property_codes: list[str], grade: str, method: str, n: int 
                          f"{n_components!r}", field="--components")
     since, until = as_utc(since), as_utc(until)
     if since is not None and until is not None and since >= until:
-        raise InputError("--since must be before --until", field="--since")
+        raise InputError("the start date must be before the end date", field="--since")
     return SelectionRequest(
         property_codes=tuple(codes), grade=grade, method=method,
         n=int(n) if n is not None else None, budget=float(budget) if budget is not None else None,
@@ -260,7 +260,7 @@ def resolve_request(session: Session, request: SelectionRequest) -> SelectionSet
                          f"{setting.tests_text} cost {cost:g} {setting.currency} per sample",
                          field="--budget")
     if request.n_components == "model" and space_model is None:
-        raise InputError("--components model needs a current model for the property and grade",
+        raise InputError("components taken from the model need a current model for the property and grade",
                          field="--components")
     setting.trained = {c: load_trained(mv) for c, mv in models.items() if mv is not None}
     return setting
@@ -446,7 +446,7 @@ def build_pool(session: Session, setting: SelectionSetting, *, ignore_run_id: in
     diagnostics = model_view(setting.trained, X_uni, axis)
     if req.pool == "outside-coverage":
         if not setting.trained:
-            raise InputError(f"--pool outside-coverage needs a current model for "
+            raise InputError(f"the outside-coverage pool needs a current model for "
                              f"{'/'.join(codes)} on grade {grade.code}; there is none",
                              field="--pool")
         rows = np.flatnonzero([any(f in SPACE_FLAGS for recs in diagnostics.values()

@@ -53,6 +53,40 @@ def catalog(session: Session, actor: Actor) -> dict[str, list[dict]]:
     }
 
 
+def users(session: Session, actor: Actor) -> list[dict]:
+    """Every user with roles and whether the account may sign in (no password hashes)."""
+    authorize(actor, Action.VIEW)
+    return [{"name": u.name, "full_name": u.full_name, "roles": sorted(u.roles or []),
+             "active": bool(u.active), "created_at": as_utc(u.created_at)}
+            for u in session.exec(select(User).order_by(User.name)).all()]
+
+
+def _precision_text(spec: dict | None) -> str:
+    """A precision spec (r or R) in words: "0.2", "-2.2 + 0.125·X", "0.029·X"."""
+    if not spec:
+        return ""
+    kind = spec.get("kind")
+    if kind == "constant":
+        return f"{spec['value']:g}"
+    if kind == "linear":
+        return f"{spec['a']:g} + {spec['b']:g}·X"
+    if kind == "proportional":
+        return f"{spec['b']:g}·X"
+    return str(kind)
+
+
+def reference_methods(session: Session, actor: Actor) -> list[dict]:
+    """Reference methods with precision (r, R at level X), cost and turnaround, by property."""
+    authorize(actor, Action.VIEW)
+    props = {p.id: p.code for p in session.exec(select(Property)).all()}
+    rows = [{"property": props.get(m.property_id, ""), "code": m.code, "name": m.name,
+             "r": _precision_text(m.repeatability), "R": _precision_text(m.reproducibility),
+             "cost": m.cost, "currency": m.currency, "turnaround_days": m.turnaround_days,
+             "active": bool(m.active)}
+            for m in session.exec(select(ReferenceMethod)).all()]
+    return sorted(rows, key=lambda r: (r["property"], r["code"]))
+
+
 def recent_predictions(session: Session, actor: Actor, *, limit: int = 50) -> list[dict]:
     """The newest predictions (newest first) with their value, model and flags."""
     authorize(actor, Action.VIEW)
@@ -234,3 +268,35 @@ def latest_prediction_id(session: Session, actor: Actor) -> int | None:
     """The newest prediction's id (a sensible default for the trace page)."""
     authorize(actor, Action.VIEW)
     return session.exec(select(Prediction.id).order_by(Prediction.id.desc()).limit(1)).first()
+
+
+# --------------------------------------------------------------------------- spectra
+
+def spectra_preview(session: Session, actor: Actor, spectrum_ids: list[int], *,
+                    limit: int = 30) -> dict[str, Any]:
+    """The first ``limit`` of the given spectra, each on its own axis, for a plot.
+
+    Returns ``{"total": n, "unit": "1/CM", "spectra": [{"id", "sample", "instrument",
+    "x" (ascending wavenumbers), "y"}]}``.
+    """
+    authorize(actor, Action.VIEW)
+    if isinstance(limit, bool) or not isinstance(limit, int) or limit < 1:
+        raise InputError(f"limit must be a whole number ≥ 1, got {limit!r}", field="limit")
+    ids = [int(i) for i in spectrum_ids][:limit]
+    about = {sid: (axis_id, ext, serial) for sid, axis_id, ext, serial in session.exec(
+        select(Spectrum.id, Spectrum.axis_id, Sample.external_id, Instrument.serial)
+        .join(Sample, Sample.id == Spectrum.sample_id)
+        .join(Instrument, Instrument.id == Spectrum.instrument_id)
+        .where(Spectrum.id.in_(ids))).all()} if ids else {}
+    missing = [i for i in ids if i not in about]
+    if missing:
+        raise NotFoundError(f"no spectrum {missing[0]}")
+    curves: dict[int, dict] = {}
+    for axis_id in sorted({a for a, _, _ in about.values()}):
+        group = [i for i in ids if about[i][0] == axis_id]  # load_matrix wants one axis
+        X, axis_row = load_matrix(session, group)
+        x = axis_values(axis_row)
+        for sid, y in zip(group, X):
+            curves[sid] = {"id": sid, "sample": about[sid][1], "instrument": about[sid][2],
+                           "x": x, "y": np.asarray(y, dtype=float)}
+    return {"total": len(spectrum_ids), "unit": "1/CM", "spectra": [curves[i] for i in ids]}

@@ -40,7 +40,7 @@ def brief_moves() -> dict[tuple[str, str], str]:
 BRIEF_ROLE_DUTIES = {
     "admin": "user_add user_deactivate site_add instrument_add property_edit method_edit "
              "policy_edit view"
-             " grade_add instrument_event",                      # decided
+             " grade_add instrument_event user_reactivate",      # decided
     "lab_manager": "selection_run calset_create model_activate model_retire view"
                    " model_submit instrument_event trigger_raise"  # decided
                    " export_data trace",                           # decided
@@ -60,7 +60,7 @@ BRIEF_ROLE_DUTIES = {
 
 # Requirement: the list of user actions the registry has.
 BRIEF_ACTIONS = (
-    "user_add user_deactivate site_add instrument_add instrument_event grade_add property_edit "
+    "user_add user_deactivate user_reactivate site_add instrument_add instrument_event grade_add property_edit "
     "method_edit import_spectra import_references export_data correct_reference "
     "resolve_suspect_reference selection_run calset_create model_train model_validate "
     "model_submit model_approve model_reject model_activate model_retire predict qc_add "

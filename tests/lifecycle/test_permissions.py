@@ -25,7 +25,7 @@ def test_permission_table_is_the_briefs_list():
     # requirement (tests/lifecycle/brief.py): the registry's user actions; the audit trail's other names are not
     # permissions of their own
     assert sorted(a.value for a in PERMISSIONS) == sorted(BRIEF_ACTIONS)
-    assert len(BRIEF_ACTIONS) == len(set(BRIEF_ACTIONS)) == 30
+    assert len(BRIEF_ACTIONS) == len(set(BRIEF_ACTIONS)) == 31  # 30 + user_reactivate (decided)
     assert set(Action) == set(PERMISSIONS) | RECORDED_ONLY
     assert not RECORDED_ONLY & set(PERMISSIONS)
 

@@ -66,7 +66,7 @@ def test_json_output_and_dry_run_store_nothing(sel_registry):
 def test_cli_errors_are_one_clear_line(sel_registry):
     engine, actors, info, url = sel_registry
     res = cli(["select", "--property", "RON", "--grade", "PREM95", "--method", "kennard-stone"], url)
-    assert res.exit_code == 2 and "exactly one of --n" in res.output
+    assert res.exit_code == 2 and "a number of samples or a budget" in res.output
     res = cli(["select", "--property", "RON", "--grade", "PREM95", "--method", "kennard-stone",
                "--n", "3"], url, user="anton")
     assert res.exit_code == 2 and "error:" in res.output

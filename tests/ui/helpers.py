@@ -13,7 +13,7 @@ from streamlit.testing.v1 import AppTest
 from tests.conftest import PASSWORD, ROLE_USERS
 
 APP = str(Path(__file__).resolve().parents[2] / "ui" / "app.py")
-PAGES = ("overview", "coverage", "send_list", "models", "qc", "due", "trace", "imports")
+PAGES = ("overview", "coverage", "send_list", "models", "qc", "due", "trace", "imports", "admin")
 
 
 def signed_in(role: str = "lab_manager", password: str = PASSWORD) -> AppTest:

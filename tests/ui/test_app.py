@@ -181,8 +181,10 @@ def test_trace_page_shows_the_trace_and_offers_the_html(ui_reg):
     at.number_input(key="trace_id").set_value(pid)
     at.form_submit_button[0].click().run()
     assert not at.error
-    assert f"Trace of prediction {pid}" in at.code[0].value
-    assert at.download_button(key="trace_download").proto.label.startswith("Download")
+    assert at.subheader[0].value.startswith(f"Trace of prediction {pid}")
+    assert "<details" in at.html[0].value  # a collapsible tree, not one long code block
+    assert at.download_button(key="trace_download").proto.label == "Trace as HTML"
+    assert at.download_button(key="trace_download_json").proto.label == "Trace as JSON"
 
 
 def test_trace_is_not_offered_to_an_analyst(ui_reg):
@@ -198,7 +200,7 @@ def test_trace_from_a_model_version(ui_reg):
     at.text_input(key="trace_model").set_value(ui_reg.label)
     at.form_submit_button[0].click().run()
     assert not at.error, [e.value for e in at.error]
-    assert ui_reg.label in at.code[0].value
+    assert ui_reg.label in at.subheader[0].value
 
 
 def test_auditor_verifies_the_audit_trail(ui_reg):
@@ -226,8 +228,9 @@ def test_import_stores_uploaded_spectra_and_lists_every_rejected_line(ui_reg, tm
     at.form_submit_button[1].click().run()
     assert not at.exception
     assert len(at.error) == 1 and "nothing of this" in at.error[0].value
-    listed = at.code[0].value.splitlines()
-    assert len(listed) == 2 and "line 2" in listed[0] and "line 4" in listed[1]
+    listed = frame(at, "problem")
+    assert listed["file"].tolist() == ["ron.csv", "ron.csv"]
+    assert listed["line"].tolist() == ["2", "4"]
 
 
 def test_reviewer_resolves_a_suspect_result_on_the_import_page(ui_reg, tmp_path):

@@ -33,7 +33,7 @@ from typing import Iterable, Iterator
 import numpy as np
 import pandas as pd
 
-from registry.errors import FormatError, InputError
+from registry.errors import FormatError, InputError, all_of
 from registry.spectra.axes import WAVENUMBER, canonical_x_unit, normalise_ascending
 from registry.spectra.record import SpectrumRecord
 
@@ -197,13 +197,20 @@ def _read_chunks(path, header: _Header, rows: int, *, numbers: list[int] | None 
         raise FormatError(f"file is not UTF-8 text ({exc.reason})", file=header.file) from None
 
 
-def _bad_cell(values: np.ndarray) -> int | None:
-    """Index of the first text cell that is not a finite number, or None."""
+#: Problems listed from one chunk before giving up (every bad row, within reason).
+MAX_LISTED = 50
+
+
+def _bad_cells(values: np.ndarray, limit: int = MAX_LISTED) -> list[int]:
+    """Indexes of the text cells that are not finite numbers (at most ``limit``)."""
+    bad = []
     for i, text in enumerate(values):
         text = "" if text is None or (isinstance(text, float) and math.isnan(text)) else str(text)
         if not _is_number(text):
-            return i
-    return None
+            bad.append(i)
+            if len(bad) >= limit:
+                break
+    return bad
 
 
 def _numeric(frame: pd.DataFrame, positions: list[int], header: _Header,
@@ -211,24 +218,27 @@ def _numeric(frame: pd.DataFrame, positions: list[int], header: _Header,
     """Check the numeric columns; return the frame with every one of them numeric.
 
     The C parser leaves a column as text when any cell is not a number; only
-    those columns are examined cell by cell, and the earliest bad cell (by
-    line) is reported.
+    those columns are examined cell by cell. Every bad row is reported (its
+    first bad column in the file), earliest line first.
     """
     kinds = [dtype.kind for dtype in frame.dtypes]
     text_columns = [pos for pos in positions if kinds[pos] not in "fiu"]
     if not text_columns:
         return frame
-    worst = None
+    first_bad: dict[int, int] = {}  # row -> its leftmost bad column
     for pos in text_columns:
-        row = _bad_cell(frame[pos].to_numpy(dtype=object))
-        if row is not None and (worst is None or row < worst[0]):
-            worst = (row, pos)
-    if worst is not None:
-        row, pos = worst
-        value = frame[pos].iloc[row]
-        text = "" if value is None else str(value).strip()
-        what = "empty value" if text in ("", "nan") else f"value {text!r} is not a number"
-        raise FormatError(what, file=header.file, line=lines[row], field=header.names[pos])
+        for row in _bad_cells(frame[pos].to_numpy(dtype=object)):
+            first_bad[row] = min(pos, first_bad.get(row, pos))
+    if first_bad:
+        problems = []
+        for row in sorted(first_bad)[:MAX_LISTED]:
+            pos = first_bad[row]
+            value = frame[pos].iloc[row]
+            text = "" if value is None else str(value).strip()
+            what = "empty value" if text in ("", "nan") else f"value {text!r} is not a number"
+            problems.append(FormatError(what, file=header.file, line=lines[row],
+                                        field=header.names[pos]))
+        raise all_of(problems)
     frame = frame.copy()
     for pos in text_columns:  # numbers with blanks around them, or after a blank row
         frame[pos] = np.array([float(str(v)) for v in frame[pos].tolist()], dtype=np.float64)
@@ -237,10 +247,12 @@ def _numeric(frame: pd.DataFrame, positions: list[int], header: _Header,
 
 def _non_finite(Y: np.ndarray, columns: list[int], header: _Header, lines: list[int]):
     if not np.isfinite(Y).all():
-        row, col = np.argwhere(~np.isfinite(Y))[0]
-        raise FormatError("value is NaN, infinite or beyond the float32 range",
-                          file=header.file, line=lines[int(row)],
-                          field=header.names[columns[int(col)]])
+        cells = np.argwhere(~np.isfinite(Y))  # row-major: each row's leftmost cell first
+        rows, first = np.unique(cells[:, 0], return_index=True)
+        raise all_of([FormatError("value is NaN, infinite or beyond the float32 range",
+                                  file=header.file, line=lines[int(row)],
+                                  field=header.names[columns[int(cells[k, 1])]])
+                      for row, k in zip(rows[:MAX_LISTED], first[:MAX_LISTED])])
 
 
 def _text_column(frame: pd.DataFrame, pos: int) -> list[str]:
