@@ -156,3 +156,72 @@ def test_compare_lists_the_samples_removed_and_the_ranges(rev):
     lo, hi = b["calibration_set"]["range"]
     assert a["calibration_set"]["range"][0] <= lo <= hi <= a["calibration_set"]["range"][1]
     assert b["validation"]["passed"] is True
+
+
+# --------------------------------------------------------------------------- the page
+from tests.ui.helpers import array, frame, open_page, plotly_specs, signed_in, texts  # noqa: E402
+
+
+def _signed_in_as(name: str):
+    from streamlit.testing.v1 import AppTest
+
+    from tests.ui.helpers import APP
+    at = AppTest.from_file(APP, default_timeout=30).run()
+    at.text_input(key="sign_in_name").input(name)
+    at.text_input(key="sign_in_password").input(PASSWORD)
+    at.form_submit_button[0].click().run()
+    return at
+
+
+def _version(at, label):
+    at.selectbox(key="models_label").set_value(label)
+    return at.run()
+
+
+def test_page_shows_the_queue_as_links_and_the_evidence_of_a_version(rev):
+    at = open_page(signed_in("reviewer"), "models")
+    assert not at.exception and not at.error, [e.value for e in at.error]
+    shown = texts(at)
+    assert f"[{rev.v2}](models?version={rev.v2}): waiting for approval" in shown
+    assert f"[{rev.v3}](models?version={rev.v3}): waiting for validation" in shown
+    assert shown.index(rev.v2) < shown.index(f"[{rev.v3}]")  # oldest wait first
+    at = _version(at, rev.v1)
+    ev = call(rev, review.model_evidence, rev.v1)
+    specs = plotly_specs(at)
+    pred = {t["name"]: t for t in specs[0]["data"]}
+    assert set(pred) == {"cross-validation", "validation set", "identity (ŷ = y)"}
+    np.testing.assert_allclose(array(pred["validation set"]["y"]), ev["validation_set"]["predicted"])
+    np.testing.assert_allclose(array(pred["cross-validation"]["x"]), ev["cross_validation"]["reference"])
+    ident = pred["identity (ŷ = y)"]
+    assert list(array(ident["x"])) == list(array(ident["y"]))  # the line ŷ = y
+    # residuals e = ŷ − y (ISO 12099), computed here with numpy
+    resid = {t["name"]: t for t in specs[1]["data"]}
+    e = ev["validation_set"]["predicted"] - ev["validation_set"]["reference"]
+    np.testing.assert_allclose(array(resid["validation set"]["y"]), e)
+    for spec in specs:  # every axis has a title with units or a count
+        layout = spec["layout"]
+        assert layout["xaxis"]["title"]["text"] and layout["yaxis"]["title"]["text"]
+    stats = frame(at, "")
+    by = dict(zip(stats[""], stats.iloc[:, 1]))
+    assert float(by["σ_R = R/2.77"]) == pytest.approx(ev["precision"]["sigma_R"], rel=5e-4)
+    assert by["verdict"] == "passed" and "σ_R" in by["acceptance rule"]
+
+
+def test_author_sees_the_reason_instead_of_the_approve_form(rev):
+    at = _version(open_page(_signed_in_as("dora"), "models"), rev.v2)
+    assert not at.exception
+    keys = [f.proto.form_id for f in at.form_submit_button]
+    assert "act_approve" not in keys and "act_reject" in keys
+    assert any("Dora Lind is the author" in i.value for i in at.info)
+    at = _version(open_page(signed_in("reviewer"), "models"), rev.v2)
+    assert "act_approve" in [f.proto.form_id for f in at.form_submit_button]
+
+
+def test_page_compares_two_versions_and_warns_of_a_reused_set(rev):
+    at = _version(open_page(signed_in("reviewer"), "models"), rev.v2)
+    at.selectbox(key="models_compare").set_value(rev.v1).run()
+    table = frame(at, rev.v2)
+    assert table[rev.v1].tolist()[table[""].tolist().index("calibration set")] == "RON-A"
+    assert f"(removed, 5): {', '.join(rev.removed)}" in texts(at)
+    at = _version(at, rev.v3)
+    assert any("RON-A" in w.value and rev.v1 in w.value for w in at.warning)
