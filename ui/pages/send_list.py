@@ -11,6 +11,7 @@ from registry.services import models as model_svc
 from registry.services import revalidation, selection, selection_runs
 from registry.services import views
 from ui.common import FAILED, call, may, require_actor
+from ui.format import num
 
 require_actor()
 st.title("Send list")
@@ -78,15 +79,20 @@ if go:
 
 def benefit_lines(b: dict) -> list[str]:
     pct = lambda v: "not known (no calibration yet)" if v is None else f"{100 * v:.1f} %"  # noqa: E731
-    num = lambda v: "not known" if v is None else f"{v:.3g}"  # noqa: E731
     if not b:
         return []
-    return [f"Recent production inside the calibration space ({b['n_recent']} samples of the last "
-            f"{b['recent_window_days']} days): {pct(b.get('inside_share_now'))} now, "
-            f"{pct(b.get('inside_share_after'))} once these samples are in.",
-            f"Widest gap (largest {b['distance']} distance from a recent sample to the nearest "
-            f"calibration sample): {num(b.get('largest_gap_now'))} now, "
-            f"{num(b.get('largest_gap_after'))} after."]
+    lines = [f"Recent production inside the calibration space now: {pct(b.get('inside_share_now'))} "
+             f"of {b['n_recent']} spectra of the last {b['recent_window_days']} days "
+             f"({b.get('n_outside_now') if b.get('n_outside_now') is not None else '?'} outside; "
+             f"the Coverage page counts the same window).",
+             f"Estimate once these samples are in, with today's limits kept fixed: "
+             f"{pct(b.get('inside_share_after'))} ({b.get('n_brought_inside') or 0} spectra brought "
+             "within today's nearest-neighbour limit; spectra failing leverage, T² or Q stay "
+             "outside until a refitted model is judged).",
+             f"Widest gap ({b['distance']} distance from a recent spectrum to its nearest "
+             f"calibration sample, in {b.get('space', 'the selection space')}): "
+             f"{num(b.get('largest_gap_now'))} now, {num(b.get('largest_gap_after'))} after."]
+    return lines
 
 
 res = st.session_state.get("sel_result")
