@@ -143,7 +143,14 @@ def test_send_list_picks_what_the_budget_buys_and_offers_the_csv(ui_reg):
     csv_text = at.download_button(key="sel_download").proto  # present once a run is shown
     assert csv_text is not None
     runs = service(ui_reg, selection_runs.list_runs)
-    assert len(runs) == 1
+    assert len(runs) == 1 and runs[0]["status"] == "waiting for results"
+    assert frame(at, "status")["status"].tolist() == ["waiting for results"]
+    # the picks on the score map, numbered in rank order, at the scores the run used
+    sel_map = next(sp for sp in plotly_specs(at) if any(t["name"] == "picks (rank)" for t in sp["data"]))
+    picks = next(t for t in sel_map["data"] if t["name"] == "picks (rank)")
+    assert list(picks["text"]) == [str(i) for i in range(1, len(rows) + 1)]
+    # the coverage figure is labelled an estimate at today's fixed limits
+    assert "today's limits kept fixed" in texts(at)
 
 
 def test_send_list_is_offered_to_lab_managers_only(ui_reg):
