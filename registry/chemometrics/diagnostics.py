@@ -397,7 +397,7 @@ class ApplicabilityDomain:
         Xc = X - self.x_mean_
         T = Xc @ self.x_rotations_
         E = Xc - T @ self.x_loadings_.T
-        Z = T @ self.whitening_.T
+        Z = self._whiten(T)
         t2 = np.einsum("ij,ij->i", Z, Z)
         leverage = t2 / (n - 1) + 1.0 / n
         q = np.einsum("ij,ij->i", E, E)
@@ -416,6 +416,16 @@ class ApplicabilityDomain:
             t2_limit=self.t2_limit_, q=q, q_limit=self.q_limit_, q_f_ratio=q_f,
             q_f_limit=self.q_f_limit_, nn_distance=nn, nn_limit=self.nn_limit_,
             y_pred=y_pred, y_min=self.y_min_, y_max=self.y_max_, flags=flags)
+
+    def _whiten(self, T: np.ndarray) -> np.ndarray:
+        return T @ self.whitening_.T
+
+    def whitened_scores(self, X_pre) -> np.ndarray:
+        """Scores of preprocessed spectra scaled to unit calibration covariance: the space
+        of the T² and nearest-neighbour checks (Euclidean distance there is Mahalanobis
+        distance on the scores)."""
+        X = np.asarray(X_pre, dtype=np.float64)
+        return self._whiten((X - self.x_mean_) @ self.x_rotations_)
 
     # ----------------------------------------------------------- plain state
     _ARRAYS = ("x_mean_", "x_rotations_", "x_loadings_", "scores_cov_", "whitening_",

@@ -62,9 +62,10 @@ def _benefit_lines(b: dict) -> list[str]:
     pct = lambda v: "n/a (no calibration yet)" if v is None else f"{100 * v:.1f} %"  # noqa: E731
     num = lambda v: "n/a" if v is None else f"{v:.3g}"  # noqa: E731
     return [
-        f"recent production (last {b['recent_window_days']} days of candidate spectra, "
-        f"{b['n_recent']} samples) inside the calibration space: now {pct(b.get('inside_share_now'))}, "
-        f"with these picks {pct(b.get('inside_share_after'))}",
+        f"recent production (last {b['recent_window_days']} days, {b['n_recent']} spectra, in "
+        f"{b.get('space', 'the selection space')}) inside the calibration space: now "
+        f"{pct(b.get('inside_share_now'))}, with these picks at today's fixed limits "
+        f"{pct(b.get('inside_share_after'))} (an estimate)",
         f"largest {b['distance']} distance from a recent sample to its nearest calibration "
         f"sample: now {num(b.get('largest_gap_now'))}, with these picks "
         f"{num(b.get('largest_gap_after'))}",

@@ -208,3 +208,44 @@ def coverage_gain(T_cal, T_recent, T_picks, *, eigenvalues=None) -> dict:
         cov = coverage_summary(after, T_recent, np.empty((0, a)), eigenvalues=eigenvalues)
         out.update(inside_share_after=cov.inside_share_now, nn_limit_after=cov.max_nn_now)
     return out
+
+
+def brought_inside(Z_recent, nn_only_outside, Z_picks, limit: float, *, eigenvalues=None
+                   ) -> np.ndarray:
+    """Which recent rows the picks would bring inside today's space, today's limits fixed.
+
+    With the model's limits fixed (it is not refitted), a pick added to the
+    calibration set changes one check only: the nearest-neighbour distance. So a
+    recent row counts as brought inside when the nearest-neighbour check is the only
+    check it fails now (``nn_only_outside``) and a pick lies within today's limit
+    ``limit`` of it. Recomputing the limit with the picks in the set (the largest
+    nearest-neighbour distance grows with every far pick) would instead report every
+    recent row inside after a handful of picks. This is an estimate: a model refitted
+    with the picks has a new space and new limits.
+
+    Parameters
+    ----------
+    Z_recent : array-like (m, a)
+        Scores of recent production (the space of the nearest-neighbour check).
+    nn_only_outside : array-like of bool (m,)
+        Rows whose only failing check now is the nearest-neighbour one.
+    Z_picks : array-like (k, a)
+        Scores of the picks, in the same space.
+    limit : float
+        Today's nearest-neighbour limit in that space.
+    eigenvalues : array (a,), optional
+        Mahalanobis weights on the scores when given, else Euclidean.
+
+    Returns
+    -------
+    ndarray of bool (m,)
+    """
+    Z_recent = np.asarray(Z_recent, dtype=np.float64)
+    reachable = np.asarray(nn_only_outside, dtype=bool).reshape(-1)
+    a = Z_recent.shape[1] if Z_recent.ndim == 2 else 0
+    Z_picks = np.asarray(Z_picks, dtype=np.float64).reshape(-1, a)
+    if Z_recent.shape[0] == 0 or Z_picks.shape[0] == 0:
+        return np.zeros(reachable.shape[0], dtype=bool)
+    w = _weights(eigenvalues, a)
+    dist = cKDTree(Z_picks * w).query(Z_recent * w)[0]
+    return reachable & (dist <= float(limit))

@@ -37,11 +37,10 @@ from datetime import datetime
 
 from sqlmodel import Session, select
 
-from ..errors import InputError, IntegrityError, StateError
+from ..errors import InputError, IntegrityError, PermissionDenied, StateError
 from ..lifecycle.permissions import Action
 from ..lifecycle.signatures import SignatureRecord, signed_content_hash
-from ..lifecycle.states import (DeploymentState, LifecycleAction, ModelState,
-                                check_separation_of_duties, check_transition)
+from ..lifecycle.states import DeploymentState, LifecycleAction, ModelState, check_transition
 from ..lineage.content_hashes import (artifact_hash, calibration_set_hash, signature_hash,
                                       validation_record_hash)
 from ..storage.models import (CalibrationMember, CalibrationSet, Deployment, Grade, Instrument,
@@ -211,9 +210,13 @@ def _next_state(mv: ModelVersion, action: LifecycleAction) -> ModelState:
     return check_transition(mv.state, action, label=f"model {mv.label}")
 
 
-def _calset_creator(session: Session, mv: ModelVersion) -> int | None:
-    cs = session.get(CalibrationSet, mv.calibration_set_id)
-    return cs.created_by_id if cs else None
+def _refuse_by_name(session: Session, actor: Actor, mv: ModelVersion, action: LifecycleAction) -> None:
+    """The four-eyes rule, refused in people's names (never internal ids)."""
+    from .review import separation_refusal
+
+    reason = separation_refusal(session, actor, mv, action)
+    if reason is not None:
+        raise PermissionDenied(reason)
 
 
 def _require_reason(reason: str, what: str) -> str:
@@ -232,8 +235,7 @@ def submit_model(session: Session, actor: Actor, label: str, reason: str = "") -
     authorize(actor, Action.MODEL_SUBMIT)
     mv = get_model(session, label)
     next_state = _next_state(mv, LifecycleAction.SUBMIT)
-    check_separation_of_duties(LifecycleAction.SUBMIT, actor.id, mv.author_id,
-                               _calset_creator(session, mv))
+    _refuse_by_name(session, actor, mv, LifecycleAction.SUBMIT)
     if latest_passing_record(session, mv) is None:
         raise StateError(f"model {mv.label} has no passing validation record to submit")
     old = mv.state
@@ -249,8 +251,7 @@ def approve_model(session: Session, actor: Actor, label: str, *, password: str,
     authorize(actor, Action.MODEL_APPROVE)
     mv = get_model(session, label)
     next_state = _next_state(mv, LifecycleAction.APPROVE)
-    check_separation_of_duties(LifecycleAction.APPROVE, actor.id, mv.author_id,
-                               _calset_creator(session, mv))
+    _refuse_by_name(session, actor, mv, LifecycleAction.APPROVE)
     verify_signer(session, actor, password)
     return _signed_move(session, actor, mv, LifecycleAction.APPROVE, Action.MODEL_APPROVE,
                         next_state, (reason or "").strip())

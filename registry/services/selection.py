@@ -24,8 +24,9 @@ action; it is made of named steps, each usable (and tested) on its own:
    D-optimal with the calibration rows fixed, or Duplex, cut to ``n`` or to the
    budget (:func:`registry.selection.picking.rank_pool`);
 6. :func:`explain_picks` and :func:`coverage_benefit` — every pick in words and
-   numbers; the share of recent production inside the calibration space now and
-   with the picks, largest gap now and after;
+   numbers; the share of recent production inside the calibration space now (as the
+   coverage map counts it) and an estimate with the picks at today's fixed limits,
+   largest gap now and after;
 7. :func:`store_run` — the run, its picks and the audit event.
 
 The current model of a property and grade is
@@ -47,6 +48,7 @@ from datetime import datetime, timedelta
 from typing import Any, Callable
 
 import numpy as np
+from scipy.spatial import cKDTree
 from sqlmodel import Session, select
 
 from ..chemometrics import TrainedModel
@@ -56,7 +58,7 @@ from ..lifecycle.states import ModelState
 from ..lineage.canonical import content_hash
 from ..plain_json import plain_json
 from ..selection import SelectionSpace, budget_positions, pick_rationale
-from ..selection.picking import (DUPLEX_MIN_PICKS, METHODS, Picks, coverage_gain,
+from ..selection.picking import (DUPLEX_MIN_PICKS, METHODS, Picks, brought_inside,
                                  nearest_before, rank_pool)
 from ..spectra.axes import on_axis
 from ..spectra.preprocessing import Recipe
@@ -71,6 +73,7 @@ from .context import Actor, audit, authorize
 from .models import DEFAULT_RECIPE, current_model, load_trained
 from .predictions import SPACE_FLAGS
 from .references import calibration_values
+from .views import recent_production
 
 __all__ = ["METHODS", "METRICS", "POOLS", "SEND_LIST_COLUMNS", "CandidatePool", "ScoreSpace",
            "SelectionRequest", "SelectionResult", "SelectionSetting", "build_pool", "build_space",
@@ -620,16 +623,77 @@ def explain_picks(setting: SelectionSetting, pool: CandidatePool, space: ScoreSp
     return rows
 
 
-def coverage_benefit(pool: CandidatePool, space: ScoreSpace, picks: Picks) -> dict[str, Any]:
-    """Coverage of recent production (candidates with a spectrum in the
-    :data:`RECENT_WINDOW_DAYS` before the newest candidate spectrum) now and with the
-    picks: :func:`registry.selection.picking.coverage_gain`."""
-    last = [max(r.acquired_at for r in pool.spectra[s]) for s in pool.universe]
-    since = max(last) - timedelta(days=RECENT_WINDOW_DAYS)
-    recent = np.array([t >= since for t in last])
-    gain = coverage_gain(space.T_reference, space.T_universe[recent], space.T_pool[picks.rows],
-                         eigenvalues=space.eigenvalues)
-    return {"recent_window_days": RECENT_WINDOW_DAYS, "recent_since": since.isoformat(), **gain}
+def coverage_benefit(session: Session, setting: SelectionSetting, pool: CandidatePool,
+                     space: ScoreSpace, picks: Picks) -> dict[str, Any]:
+    """Recent production inside the calibration space now, and an estimate with the picks.
+
+    With a current model (the space model), recent production is what the coverage
+    map counts for the same window (:func:`registry.services.views.recent_production`,
+    :data:`RECENT_WINDOW_DAYS` before the grade's newest spectrum): "now" is the share
+    passing every space check of the model, so it equals the coverage map's figure.
+    "After" keeps today's limits fixed: the picks, added as calibration neighbours,
+    change only the nearest-neighbour check, so a spectrum counts as brought inside
+    when that is the only check it fails and a pick lies within today's limit of it
+    in the model's whitened scores (:func:`registry.selection.picking.brought_inside`).
+    It is an estimate: a refitted model has a new space and new limits. Without a model the same is done in the run's PCA
+    space on the untested candidates of the window, with the calibration reference's
+    largest nearest-neighbour distance as the fixed limit.
+    """
+    trained, mv = setting.space_trained, setting.space_model
+    picked = pool.X_universe[pool.rows[picks.rows]]
+    if trained is not None:
+        rp = recent_production(session, mv, trained, setting.grade, RECENT_WINDOW_DAYS)
+        outside, diag = rp["outside"], rp["diagnostics"]
+        nn_only = np.array([[f for f in fl if f in SPACE_FLAGS] == ["nearest_neighbour"]
+                            for fl in diag.flag_lists()], dtype=bool) if diag is not None else outside
+        domain = trained.domain
+        limit = float(domain.nn_limit_)
+        Z_picks = domain.whitened_scores(trained.preprocessor.transform(on_axis(
+            picked, pool.axis, trained.axis)))
+        if diag is not None:
+            Z_recent = domain.whitened_scores(trained.preprocessor.transform(rp["X"]))
+            nn_now = diag.nn_distance
+        else:
+            Z_recent, nn_now = np.empty((0, Z_picks.shape[1])), np.empty(0)
+        weights, where = None, f"the scores of model {mv.label}"
+        since, until = rp["since"], rp["until"]
+    else:
+        last = [max(r.acquired_at for r in pool.spectra[s]) for s in pool.universe]
+        until = max(last)
+        since = until - timedelta(days=RECENT_WINDOW_DAYS)
+        Z_recent = space.T_universe[np.array([t >= since for t in last])]
+        Z_picks, weights = space.T_pool[picks.rows], space.eigenvalues
+        where = "the selection space (no current model)"
+        if space.T_reference.shape[0] >= 2:
+            w = (1.0 / np.sqrt(weights)) if weights is not None else np.ones(Z_recent.shape[1])
+            ref = space.T_reference * w
+            limit = float(cKDTree(ref).query(ref, k=2)[0][:, 1].max())
+            nn_now = cKDTree(ref).query(Z_recent * w)[0] if Z_recent.shape[0] else np.empty(0)
+            outside = nn_now > limit
+            nn_only = outside  # the only check of a space without a model
+        else:
+            limit, nn_now, outside, nn_only = None, None, None, None
+    n = int(Z_recent.shape[0])
+    out = {"recent_window_days": RECENT_WINDOW_DAYS, "recent_since": since.isoformat() if since else None,
+           "recent_until": until.isoformat() if until else None, "n_recent": n,
+           "space": where, "model": mv.label if mv is not None else None, "estimate": True,
+           "limits": "today's limits, kept fixed", "nn_limit": limit,
+           "n_outside_now": None, "n_brought_inside": None,
+           "inside_share_now": None, "inside_share_after": None,
+           "largest_gap_now": None, "largest_gap_after": None,
+           "distance": "mahalanobis" if (trained is not None or weights is not None) else "euclidean"}
+    if n == 0 or outside is None:
+        return out
+    brought = brought_inside(Z_recent, nn_only, Z_picks, limit, eigenvalues=weights)
+    w = (1.0 / np.sqrt(weights)) if weights is not None else np.ones(Z_recent.shape[1])
+    to_picks = (cKDTree(Z_picks * w).query(Z_recent * w)[0] if Z_picks.shape[0]
+                else np.full(n, np.inf))
+    out.update(n_outside_now=int(outside.sum()), n_brought_inside=int(brought.sum()),
+               inside_share_now=float(1 - outside.mean()),
+               inside_share_after=float(1 - (outside & ~brought).mean()),
+               largest_gap_now=float(np.max(nn_now)),
+               largest_gap_after=float(np.max(np.minimum(nn_now, to_picks))))
+    return out
 
 
 def selection_parameters(setting: SelectionSetting, pool: CandidatePool, space: ScoreSpace,
@@ -702,13 +766,13 @@ class SelectionResult:
                 "picks": [{k: v for k, v in r.items() if k != "sample_pk"} for r in self.rows]}
 
 
-def selection_result(setting: SelectionSetting, pool: CandidatePool, space: ScoreSpace,
-                     picks: Picks) -> SelectionResult:
+def selection_result(session: Session, setting: SelectionSetting, pool: CandidatePool,
+                     space: ScoreSpace, picks: Picks) -> SelectionResult:
     """Reasons, benefit and parameters of ``picks`` as one (unstored) result."""
     return SelectionResult(
         run=None, parameters=selection_parameters(setting, pool, space, picks),
         rows=explain_picks(setting, pool, space, picks),
-        benefit=coverage_benefit(pool, space, picks), pool_sha256=pool.sha256,
+        benefit=coverage_benefit(session, setting, pool, space, picks), pool_sha256=pool.sha256,
         pool_size=pool.size, cost_per_sample=setting.cost_per_sample, currency=setting.currency,
         tests=setting.tests_text,
         model_label=setting.space_model.label if setting.space_model else None,
@@ -811,7 +875,7 @@ def run_request(session: Session, actor: Actor, request: SelectionRequest, *,
     candidates = build_pool(session, setting, ignore_run_id=ignore_run_id, progress=progress)
     space = build_space(setting, candidates)
     picks = choose_picks(setting, candidates, space, progress=progress)
-    result = selection_result(setting, candidates, space, picks)
+    result = selection_result(session, setting, candidates, space, picks)
     if store:
         result.run = store_run(session, actor, result, setting)
     return result

@@ -62,16 +62,29 @@ def get_run(session: Session, run_id: int | str) -> SelectionRun:
     return run
 
 
+def run_status(state: str, n_picks: int, n_answered: int) -> str:
+    """In words: closed, answered (every pick has a result), partly answered, or waiting."""
+    if state == "closed":
+        return "closed"
+    if n_picks and n_answered >= n_picks:
+        return "answered"
+    return "partly answered" if n_answered else "waiting for results"
+
+
 def list_runs(session: Session, actor: Actor) -> list[dict[str, Any]]:
     authorize(actor, Action.VIEW)
     users = {u.id: u.name for u in session.exec(select(User)).all()}
     grades = {g.id: g.code for g in session.exec(select(Grade)).all()}
     out = []
     for run in session.exec(select(SelectionRun).order_by(SelectionRun.id)).all():
-        n_picks = len(session.exec(select(SelectionPick.id).where(SelectionPick.run_id == run.id)).all())
+        pick_ids = session.exec(select(SelectionPick.id).where(SelectionPick.run_id == run.id)).all()
+        answered = set(session.exec(select(ReferenceResult.selection_pick_id).where(
+            ReferenceResult.selection_pick_id.in_(pick_ids))).all()) if pick_ids else set()
         out.append({"id": run.id, "created_at": run.created_at, "by": users.get(run.user_id),
                     "method": run.method, "properties": run.property_codes,
-                    "grade": grades.get(run.grade_id), "picks": n_picks,
+                    "grade": grades.get(run.grade_id), "picks": len(pick_ids),
+                    "answered_picks": len(answered),
+                    "status": run_status(run.state, len(pick_ids), len(answered)),
                     "total_cost": run.total_cost, "budget": run.budget, "state": run.state,
                     "pool_size": run.pool_size})
     return out

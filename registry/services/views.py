@@ -151,6 +151,39 @@ def _week_start(t: datetime) -> datetime:
     return (t - timedelta(days=t.weekday())).replace(hour=0, minute=0, second=0, microsecond=0)
 
 
+def recent_production(session: Session, mv: ModelVersion, trained, grade: Grade,
+                      days: int) -> dict[str, Any]:
+    """The grade's spectra of the ``days`` before its newest spectrum, the model's
+    calibration spectra excluded (at most :data:`MAX_RECENT`, newest kept), oldest first,
+    with the model's prediction-time diagnostics. One definition of "recent production"
+    for the coverage map and the selection benefit, so both count the same spectra.
+
+    Returns ``rows`` ((spectrum id, acquired UTC, sample), ...), ``since``, ``until``,
+    ``X`` (raw spectra on the model axis), ``diagnostics`` (None without rows) and
+    ``outside`` (bool per row: a space check failed, :data:`SPACE_FLAGS`).
+    """
+    cs_ids = {int(s) for m in session.exec(select(CalibrationMember).where(
+        CalibrationMember.set_id == mv.calibration_set_id, CalibrationMember.role == "cal")).all()
+        for s in m.spectrum_ids}
+    grade_rows = session.exec(select(Spectrum.id, Spectrum.acquired_at, Sample.external_id)
+                              .join(Sample, Sample.id == Spectrum.sample_id)
+                              .where(Sample.grade_id == grade.id)
+                              .order_by(Spectrum.acquired_at.desc(), Spectrum.id.desc())).all()
+    until = as_utc(grade_rows[0][1]) if grade_rows else None
+    since = until - timedelta(days=days) if until else None
+    rows = [(sid, as_utc(t), ext) for sid, t, ext in grade_rows
+            if sid not in cs_ids and as_utc(t) >= since][:MAX_RECENT]
+    rows.reverse()  # oldest first, for time plots
+    X, diag, outside = None, None, np.zeros(0, dtype=bool)
+    if rows:
+        X = load_on_axis(session, [r[0] for r in rows], trained.axis)
+        _, diag = trained.predict(X)
+        outside = np.array([any(f in SPACE_FLAGS for f in fl) for fl in diag.flag_lists()],
+                           dtype=bool)
+    return {"rows": rows, "since": since, "until": until, "X": X, "diagnostics": diag,
+            "outside": outside}
+
+
 def coverage_map(session: Session, actor: Actor, property_code: str, grade_code: str, *,
                  days: int = 90, model: str | None = None) -> dict[str, Any]:
     """Where recent production lies relative to a model's calibration space.
@@ -196,20 +229,10 @@ def coverage_map(session: Session, actor: Actor, property_code: str, grade_code:
                          field="model")
     pca = PCA(n_components=2).fit(X_cal)
 
-    grade_rows = session.exec(select(Spectrum.id, Spectrum.acquired_at, Sample.external_id)
-                              .join(Sample, Sample.id == Spectrum.sample_id)
-                              .where(Sample.grade_id == grade.id)
-                              .order_by(Spectrum.acquired_at.desc(), Spectrum.id.desc())).all()
-    until = as_utc(grade_rows[0][1]) if grade_rows else None
-    since = until - timedelta(days=days) if until else None
-    cal_set = set(cal_ids)
-    recent = [(sid, as_utc(t), ext) for sid, t, ext in grade_rows
-              if sid not in cal_set and as_utc(t) >= since][:MAX_RECENT]
-    recent.reverse()  # oldest first, for time plots
+    rp = recent_production(session, mv, trained, grade, days)
+    recent, since, until = rp["rows"], rp["since"], rp["until"]
     if recent:
-        ids = [r[0] for r in recent]
-        X_new = load_on_axis(session, ids, trained.axis)
-        _, diag = trained.predict(X_new)
+        X_new, diag = rp["X"], rp["diagnostics"]
         flags = diag.flag_lists()
         scores_new = pca.transform(trained.preprocessor.transform(X_new))
         t2_new, q_new = diag.t2, diag.q
@@ -219,7 +242,7 @@ def coverage_map(session: Session, actor: Actor, property_code: str, grade_code:
     # Hotelling T² and Q residual of every spectrum against the model's own limits: the
     # view in which a new blend component shows (high Q) even when PC1/PC2 look familiar.
     _, diag_cal = trained.predict(X_cal_raw)
-    outside = np.array([any(f in SPACE_FLAGS for f in fl) for fl in flags], dtype=bool)
+    outside = rp["outside"]
     weekly: dict[datetime, list[int]] = {}
     for (_, t, _), out in zip(recent, outside):
         w = weekly.setdefault(_week_start(t), [0, 0])

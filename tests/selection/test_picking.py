@@ -146,3 +146,20 @@ def test_coverage_gain_without_calibration_rows_has_no_now_figures():
     assert gain["largest_gap_after"] == pytest.approx(
         cdist(_scores(14, 10), _scores(15, 3)).min(axis=1).max(), rel=1e-12)
     assert gain["distance"] == "euclidean" and gain["inside_share_after"] is not None
+
+
+def test_brought_inside_counts_only_neighbour_failures_within_the_fixed_limit():
+    """Brute force with scipy's cdist: a row is brought inside when the nearest-neighbour
+    check is its only failure and some pick is within today's limit (limit kept fixed)."""
+    from scipy.spatial.distance import cdist
+
+    from registry.selection.picking import brought_inside
+
+    Z_recent, Z_picks = _scores(21, 30), _scores(22, 3)
+    nn_only = np.arange(30) % 3 != 0
+    limit = 1.0
+    got = brought_inside(Z_recent, nn_only, Z_picks, limit, eigenvalues=EIG)
+    w = 1 / np.sqrt(EIG)
+    expected = nn_only & (cdist(Z_recent * w, Z_picks * w).min(axis=1) <= limit)
+    np.testing.assert_array_equal(got, expected)
+    assert not brought_inside(Z_recent, nn_only, np.empty((0, Z_recent.shape[1])), limit).any()

@@ -124,7 +124,7 @@ def test_coverage_benefit_counts_recent_production(sel_registry):
     with session_scope(engine) as s:
         setting, pool, space = _steps(s)
         picks = svc.choose_picks(setting, pool, space)
-    benefit = svc.coverage_benefit(pool, space, picks)
+        benefit = svc.coverage_benefit(s, setting, pool, space, picks)
     newest = max(r.acquired_at for refs in pool.spectra.values() for r in refs)
     recent = [s for s, refs in pool.spectra.items()
               if max(r.acquired_at for r in refs) >= newest - timedelta(days=90)]
@@ -136,7 +136,7 @@ def test_store_run_writes_the_run_its_picks_and_one_audit_event(sel_registry):
     engine, actors, _, _ = sel_registry
     with session_scope(engine) as s:
         setting, pool, space = _steps(s, n=3)
-        result = svc.selection_result(setting, pool, space, svc.choose_picks(setting, pool, space))
+        result = svc.selection_result(s, setting, pool, space, svc.choose_picks(setting, pool, space))
         assert s.exec(select(func.count()).select_from(SelectionRun)).one() == 0
         before = s.exec(select(func.count()).select_from(AuditEvent)).one()
         run = svc.store_run(s, actors["lab_manager"], result, setting)

@@ -63,7 +63,7 @@ def test_models_page_lists_the_model_and_draws_its_cv_curve(ui_reg):
     table = frame(at, "RMSECV")
     assert ui_reg.label in table["label"].tolist()
     detail = service(ui_reg, models.model_detail, ui_reg.label)
-    spec = plotly_specs(at)[0]
+    spec = next(sp for sp in plotly_specs(at) if sp["data"][0]["name"] == "RMSECV")
     curve, chosen = spec["data"][0], spec["data"][1]
     # the curve is the stored RMSECV per component count, A = 1..max
     assert array(curve["x"]).tolist() == list(range(1, len(detail["cv"]["rmsecv"]) + 1))
@@ -82,10 +82,11 @@ def test_models_page_lists_the_model_and_draws_its_cv_curve(ui_reg):
     [v] = detail["validations"]
     row = validations.iloc[0]
     assert row["acceptance rule"] == v["rule"] and "σ_R = R/2.77" in v["rule"]
-    assert row["SEP"] == pytest.approx(v["sep"], abs=1e-4)
-    assert row["RMSEP"] == pytest.approx(v["rmsep"], abs=1e-4)
-    assert row["SEP/σ_R"] == pytest.approx(v["sep"] / (row["R"] / 2.772), abs=2e-3)
-    assert row["1.96·SEP"] == pytest.approx(1.96 * v["sep"], abs=1e-4)
+    # shown with four significant digits (ui.format.num), never rounded away
+    assert float(row["SEP"]) == pytest.approx(v["sep"], rel=5e-4)
+    assert float(row["RMSEP"]) == pytest.approx(v["rmsep"], rel=5e-4)
+    assert float(row["SEP/σ_R"]) == pytest.approx(v["sep"] / (float(row["R"]) / 2.772), rel=2e-3)
+    assert float(row["1.96·SEP"]) == pytest.approx(1.96 * v["sep"], rel=5e-4)
 
 
 def test_a_signature_action_asks_for_the_password_again(ui_reg):
@@ -142,7 +143,14 @@ def test_send_list_picks_what_the_budget_buys_and_offers_the_csv(ui_reg):
     csv_text = at.download_button(key="sel_download").proto  # present once a run is shown
     assert csv_text is not None
     runs = service(ui_reg, selection_runs.list_runs)
-    assert len(runs) == 1
+    assert len(runs) == 1 and runs[0]["status"] == "waiting for results"
+    assert frame(at, "status")["status"].tolist() == ["waiting for results"]
+    # the picks on the score map, numbered in rank order, at the scores the run used
+    sel_map = next(sp for sp in plotly_specs(at) if any(t["name"] == "picks (rank)" for t in sp["data"]))
+    picks = next(t for t in sel_map["data"] if t["name"] == "picks (rank)")
+    assert list(picks["text"]) == [str(i) for i in range(1, len(rows) + 1)]
+    # the coverage figure is labelled an estimate at today's fixed limits
+    assert "today's limits kept fixed" in texts(at)
 
 
 def test_send_list_is_offered_to_lab_managers_only(ui_reg):

@@ -11,13 +11,25 @@ from registry.lifecycle.permissions import LIFECYCLE_PERMISSIONS
 from registry.lifecycle.states import DeploymentState, LifecycleAction, allowed_actions
 from registry.services import lifecycle
 from registry.services import models as model_svc
-from registry.services import views
+from registry.services import review, views
 from ui.common import (COLOURS, FAILED, PLOT_TEMPLATE, call, flash, may, require_actor, show_flash,
                        when)
+from ui.format import num, unit_of
 
 require_actor()
 st.title("Model versions")
 show_flash()
+
+queue = call(review.review_queue)
+if queue is not FAILED:
+    st.subheader("Review queue")
+    if queue:
+        st.markdown("\n".join(
+            f"- [{q['label']}](models?version={q['label']}): waiting for {q['waiting_for']} since "
+            f"{when(q['since'])} ({q['property']}, {q['grade'] or 'all grades'}; author "
+            f"{q['author']})" for q in queue))
+    else:
+        st.write("No version waits for validation or approval.")
 
 rows = call(model_svc.list_models)
 if rows is FAILED:
@@ -25,22 +37,28 @@ if rows is FAILED:
 if not rows:
     st.info("No model versions yet: freeze a calibration set and train one.")
     st.stop()
+st.subheader("All versions")
 st.dataframe(pd.DataFrame([{
     "label": r["label"], "property": r["property"], "grade": r["grade"], "state": r["state"],
-    "components": r["components"],
-    "RMSECV": round(r["rmsecv"], 4) if r["rmsecv"] is not None else None,
+    "components": r["components"], "RMSECV": num(r["rmsecv"]),
     "created (UTC)": when(r["created_at"]), "last validated (UTC)": when(r["last_validated_at"])}
     for r in rows]), hide_index=True, key="models_table")
 
 labels = [r["label"] for r in rows]
-label = st.selectbox("Version", labels, index=len(labels) - 1, key="models_label")
+asked = st.query_params.get("version")
+label = st.selectbox("Version", labels,
+                     index=labels.index(asked) if asked in labels else len(labels) - 1,
+                     key="models_label")
 d = call(model_svc.model_detail, label)
-if d is FAILED:
+ev = call(review.model_evidence, label)
+if d is FAILED or ev is FAILED:
     st.stop()
 
 st.subheader(f"{d['label']}: {d['property']} ({d['state']})")
+for w in ev["warnings"]:
+    st.warning(w)
 c = st.columns(4)
-c[0].metric("PLS components", d["components"])
+c[0].metric("Components", d["components"])
 c[1].metric("Calibration / validation samples", f"{d['calibration_set']['n_cal']} / "
             f"{d['calibration_set']['n_val']}")
 c[2].metric("Author", d["author"] or "")
@@ -50,11 +68,47 @@ st.caption(f"Calibration set {d['calibration_set']['name']} (SHA-256 {d['calibra
            + (f"; parent {d['parent']}" if d["parent"] else ""))
 st.caption(f"Q-residual limit: {describe_q_limit(d['q_limit'])}")
 
-cv = d["cv"] or {}
-rmsecv = cv.get("rmsecv") or []
+unit = unit_of(d["unit"])
+prop = d["property"]
+cvp, val = ev["cross_validation"], ev["validation_set"]
+sets = [(name, part, colour, symbol) for name, part, colour, symbol in (
+    ("cross-validation", cvp, COLOURS["calibration"], "circle-open"),
+    ("validation set", val, COLOURS["inside"], "circle")) if part is not None]
+if sets:
+    st.markdown("**Predicted against reference**")
+    lo = min(float(min(p["reference"].min(), p["predicted"].min())) for _, p, _, _ in sets)
+    hi = max(float(max(p["reference"].max(), p["predicted"].max())) for _, p, _, _ in sets)
+    fig = go.Figure()
+    for name, part, colour, symbol in sets:
+        fig.add_trace(go.Scatter(x=part["reference"], y=part["predicted"], mode="markers", name=name,
+                                 text=part["sample"], marker={"color": colour, "symbol": symbol}))
+    fig.add_trace(go.Scatter(x=[lo, hi], y=[lo, hi], mode="lines", name="identity (ŷ = y)",
+                             line={"color": COLOURS["limit"], "dash": "dash", "width": 1}))
+    fig.update_layout(template=PLOT_TEMPLATE, height=420, xaxis_title=f"reference {prop}{unit}",
+                      yaxis_title=f"predicted {prop}{unit}", legend={"orientation": "h", "y": -0.25})
+    st.plotly_chart(fig, key="models_pred_ref")
+    r1, r2 = st.columns(2)
+    for col, (xkey, xtitle, key) in zip((r1, r2), (
+            ("reference", f"reference {prop}{unit}", "models_resid_ref"),
+            ("acquired_at", "spectrum acquired (UTC)", "models_resid_time"))):
+        rf = go.Figure()
+        for name, part, colour, symbol in sets:
+            rf.add_trace(go.Scatter(x=part[xkey], y=part["predicted"] - part["reference"],
+                                    mode="markers", name=name, text=part["sample"],
+                                    marker={"color": colour, "symbol": symbol}))
+        rf.add_hline(y=0, line_color=COLOURS["limit"], line_dash="dash")
+        rf.update_layout(template=PLOT_TEMPLATE, height=340, xaxis_title=xtitle,
+                         yaxis_title=f"residual ŷ − y{unit}", legend={"orientation": "h", "y": -0.35})
+        col.plotly_chart(rf, key=key)
+    st.caption("Cross-validation: each calibration spectrum predicted by the model fitted without "
+               "its fold, at the chosen size (stored at training). Validation set: the version's "
+               "own validation samples predicted now, replicates averaged.")
+
+curve = ev["cv_curve"]
+rmsecv = curve["rmsecv"]
 if rmsecv:
     a = list(range(1, len(rmsecv) + 1))
-    chosen = d["components"]
+    chosen = curve["chosen"]
     fig = go.Figure()
     fig.add_trace(go.Scatter(x=a, y=rmsecv, mode="lines+markers", name="RMSECV",
                              line={"color": COLOURS["line"]}, marker={"color": COLOURS["line"]}))
@@ -62,23 +116,37 @@ if rmsecv:
                              name=f"chosen A = {chosen}",
                              marker={"color": COLOURS["marker"], "size": 14, "symbol": "diamond"}))
     fig.add_vline(x=chosen, line_dash="dot", line_color=COLOURS["limit"])
-    unit = f" ({d['unit']})" if d["unit"] else ""
-    fig.update_layout(template=PLOT_TEMPLATE, height=360, xaxis_title="PLS components (A)",
+    fig.update_layout(template=PLOT_TEMPLATE, height=360, xaxis_title="components (A, count)",
                       yaxis_title=f"RMSECV{unit}", xaxis={"dtick": 1},
-                      title=f"Cross-validation ({cv.get('method', '')}, {cv.get('n_folds', '')} folds; "
-                            f"rule: {cv.get('selection_rule', '')})")
+                      title=f"Cross-validation ({curve['method'] or ''}, {curve['n_folds'] or ''} "
+                            f"folds; rule: {curve['rule'] or ''})")
     st.plotly_chart(fig, key="models_cv")
+
+st.markdown("**Statistics beside the reference method's precision**")
+lv, pr = ev["latest_validation"], ev["precision"]
+stats = [("reference method", pr["method"] or "none active"),
+         ("level (mean reference)", num(pr["level"])),
+         ("r (repeatability limit)", num(pr["r"])), ("R (reproducibility limit)", num(pr["R"])),
+         ("σ_R = R/2.77", num(pr["sigma_R"]))]
+if lv is not None:
+    stats += [("validation record", f"{lv['id']} ({lv['kind']}, n = {lv['n']}, by {lv['by']})"),
+              ("SEP", num(lv["sep"])), ("RMSEP", num(lv["rmsep"])), ("bias", num(lv["bias"])),
+              ("bias p", num(lv["bias_p"])), ("R²", num(lv["r2"])),
+              ("SEP/σ_R", num(lv["sep_over_sigma_r"])), ("1.96·SEP (compare with R)", num(lv["sep_95"])),
+              ("acceptance rule", lv["rule"]),
+              ("verdict", "passed" if lv["passed"] else "failed: " + "; ".join(lv["reasons"]))]
+else:
+    stats.append(("verdict", "not validated yet"))
+st.dataframe(pd.DataFrame(stats, columns=["", f"value{unit}"]), hide_index=True,
+             key="models_stats")
 
 st.markdown("**Validation records**")
 if d["validations"]:
-    def _r(value, digits=4):
-        return None if value is None else round(value, digits)
-
     st.dataframe(pd.DataFrame([{
         "id": v["id"], "kind": v["kind"], "passed": v["passed"], "n": v["n"],
-        "SEP": _r(v["sep"]), "RMSEP": _r(v["rmsep"]), "bias": _r(v["bias"]),
-        "bias p": _r(v["bias_p"]), "R²": _r(v["r2"]), "SEP/σ_R": _r(v["sep_over_sigma_r"], 3),
-        "1.96·SEP": _r(v["sep_95"]), "R": _r(v["reproducibility"]),
+        "SEP": num(v["sep"]), "RMSEP": num(v["rmsep"]), "bias": num(v["bias"]),
+        "bias p": num(v["bias_p"]), "R²": num(v["r2"]), "SEP/σ_R": num(v["sep_over_sigma_r"]),
+        "1.96·SEP": num(v["sep_95"]), "R": num(v["reproducibility"]),
         "acceptance rule": v["rule"], "by": v["by"], "at (UTC)": when(v["at"]),
         "reasons": "; ".join(v["reasons"] or [])}
         for v in d["validations"]]), hide_index=True, key="models_validations")
@@ -114,9 +182,58 @@ if d["deployments"]:
 else:
     st.write("Not deployed.")
 
+# ---------------------------------------------------------------- compare two versions
+st.subheader("Compare with another version")
+others = [x for x in labels if x != label]
+if others:
+    other = st.selectbox("Other version", others, index=len(others) - 1, key="models_compare")
+    cmp = call(review.compare_versions, other, label)
+    if cmp is not FAILED:
+        a, b = cmp["a"], cmp["b"]
+
+        def column(v):
+            cs, vd = v["calibration_set"], v["validation"] or {}
+            rng = cs["range"]
+            return [v["state"], v["family"], v["components"], v["author"], num(v["rmsecv_at_chosen"]),
+                    num(vd.get("sep")), num(vd.get("rmsep")), num(vd.get("bias")),
+                    num(vd.get("sep_over_sigma_r")),
+                    "" if not vd else ("passed" if vd["passed"] else "failed"),
+                    cs["name"], cs["n_cal"], cs["n_val"],
+                    f"{num(rng[0])} – {num(rng[1])}" if rng else "", v["artifact_sha256"][:16] + "…"]
+
+        rows_cmp = ["state", "family", "components", "author", f"RMSECV at chosen size{unit}",
+                    f"SEP{unit}", f"RMSEP{unit}", f"bias{unit}", "SEP/σ_R", "latest verdict",
+                    "calibration set", "calibration samples", "validation samples",
+                    f"calibration range{unit}", "artifact SHA-256"]
+        st.dataframe(pd.DataFrame({"": rows_cmp, a["label"]: [str(x) for x in column(a)],
+                                   b["label"]: [str(x) for x in column(b)]}),
+                     hide_index=True, key="models_compare_table")
+        cf = go.Figure()
+        for v, colour, dash in ((a, COLOURS["calibration"], "dash"), (b, COLOURS["line"], "solid")):
+            if v["rmsecv"]:
+                cf.add_trace(go.Scatter(x=list(range(1, len(v["rmsecv"]) + 1)), y=v["rmsecv"],
+                                        mode="lines+markers", name=v["label"],
+                                        line={"color": colour, "dash": dash}))
+        cf.update_layout(template=PLOT_TEMPLATE, height=320, xaxis_title="components (A, count)",
+                         yaxis_title=f"RMSECV{unit}", xaxis={"dtick": 1})
+        st.plotly_chart(cf, key="models_compare_cv")
+        if cmp["same_set"]:
+            st.write("Both versions were trained on the same calibration set.")
+        else:
+            st.markdown(f"Calibration samples in {b['label']} and not in {a['label']} "
+                        f"(added, {len(cmp['added'])}): {', '.join(cmp['added']) or 'none'}  \n"
+                        f"In {a['label']} and not in {b['label']} (removed, "
+                        f"{len(cmp['removed'])}): {', '.join(cmp['removed']) or 'none'}")
+
 # ---------------------------------------------------------------- lifecycle moves
 st.subheader("Actions")
 moves = [m for m in allowed_actions(d["state"]) if may(LIFECYCLE_PERMISSIONS[m])]
+if LifecycleAction.APPROVE in moves:
+    approval = call(review.approval_status, label)
+    if approval is FAILED or not approval["allowed"]:
+        moves.remove(LifecycleAction.APPROVE)
+        if approval is not FAILED:
+            st.info(f"Approval is not offered: {approval['reason']}.")
 if not moves:
     st.write(f"Your roles allow no move on a {d['state']} version.")
 

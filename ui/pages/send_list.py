@@ -2,7 +2,10 @@
 
 from __future__ import annotations
 
+from datetime import datetime, timezone
+
 import pandas as pd
+import plotly.graph_objects as pgo
 import streamlit as st
 
 from registry.lifecycle.permissions import Action
@@ -10,7 +13,8 @@ from registry.lifecycle.states import CURRENT_MODEL_STATES
 from registry.services import models as model_svc
 from registry.services import revalidation, selection, selection_runs
 from registry.services import views
-from ui.common import FAILED, call, may, require_actor
+from ui.common import COLOURS, FAILED, PLOT_TEMPLATE, call, may, require_actor, when
+from ui.format import num
 
 require_actor()
 st.title("Send list")
@@ -73,20 +77,28 @@ if go:
             "run_id": result.run.id if result.run is not None else None,
             "rows": result.rows, "benefit": result.benefit, "model": result.model_label,
             "pool_size": result.pool_size, "tests": result.tests, "currency": result.currency,
-            "total_cost": result.total_cost, "csv": selection_runs.send_list_csv(result.rows)}
+            "total_cost": result.total_cost, "csv": selection_runs.send_list_csv(result.rows),
+            "scores_calibration": result.scores_calibration, "scores_pool": result.scores_pool,
+            "pool_ids": result.pool_sample_ids, "picked": result.picked_sample_ids,
+            "day": f"{datetime.now(timezone.utc):%Y-%m-%d}"}
 
 
 def benefit_lines(b: dict) -> list[str]:
     pct = lambda v: "not known (no calibration yet)" if v is None else f"{100 * v:.1f} %"  # noqa: E731
-    num = lambda v: "not known" if v is None else f"{v:.3g}"  # noqa: E731
     if not b:
         return []
-    return [f"Recent production inside the calibration space ({b['n_recent']} samples of the last "
-            f"{b['recent_window_days']} days): {pct(b.get('inside_share_now'))} now, "
-            f"{pct(b.get('inside_share_after'))} once these samples are in.",
-            f"Widest gap (largest {b['distance']} distance from a recent sample to the nearest "
-            f"calibration sample): {num(b.get('largest_gap_now'))} now, "
-            f"{num(b.get('largest_gap_after'))} after."]
+    lines = [f"Recent production inside the calibration space now: {pct(b.get('inside_share_now'))} "
+             f"of {b['n_recent']} spectra of the last {b['recent_window_days']} days "
+             f"({b.get('n_outside_now') if b.get('n_outside_now') is not None else '?'} outside; "
+             f"the Coverage page counts the same window).",
+             f"Estimate once these samples are in, with today's limits kept fixed: "
+             f"{pct(b.get('inside_share_after'))} ({b.get('n_brought_inside') or 0} spectra brought "
+             "within today's nearest-neighbour limit; spectra failing leverage, T² or Q stay "
+             "outside until a refitted model is judged).",
+             f"Widest gap ({b['distance']} distance from a recent spectrum to its nearest "
+             f"calibration sample, in {b.get('space', 'the selection space')}): "
+             f"{num(b.get('largest_gap_now'))} now, {num(b.get('largest_gap_after'))} after."]
+    return lines
 
 
 res = st.session_state.get("sel_result")
@@ -102,5 +114,45 @@ if res:
     st.dataframe(pd.DataFrame([{c: (", ".join(r[c]) if isinstance(r.get(c), list) else r.get(c))
                                 for c in cols} for r in res["rows"]]),
                  hide_index=True, key="sel_table")
-    st.download_button("Download send list (CSV)", res["csv"], file_name="send-list.csv",
+    run_part = f"run{res['run_id']}" if res["run_id"] else "preview"
+    st.download_button("Download send list (CSV)", res["csv"],
+                       file_name=f"send-list-{run_part}-{res['day']}.csv",
                        mime="text/csv", key="sel_download")
+    Tc, Tp = res["scores_calibration"], res["scores_pool"]
+    if Tp is not None and Tp.shape[1] >= 2:
+        rows_of = [res["pool_ids"].index(p) for p in res["picked"]]
+        fig = pgo.Figure()
+        fig.add_trace(pgo.Scatter(x=Tc[:, 0], y=Tc[:, 1], mode="markers", name="calibration",
+                                 marker={"color": COLOURS["calibration"], "symbol": "circle-open"}))
+        fig.add_trace(pgo.Scatter(x=Tp[:, 0], y=Tp[:, 1], mode="markers", name="candidate pool",
+                                 marker={"color": COLOURS["inside"], "size": 5}))
+        fig.add_trace(pgo.Scatter(x=Tp[rows_of, 0], y=Tp[rows_of, 1], mode="markers+text",
+                                 name="picks (rank)", text=[str(i + 1) for i in range(len(rows_of))],
+                                 textposition="top center",
+                                 marker={"color": COLOURS["marker"], "size": 11, "symbol": "x"}))
+        fig.update_layout(template=PLOT_TEMPLATE, height=440,
+                          xaxis_title="score 1 of the selection space (no unit)",
+                          yaxis_title="score 2 of the selection space (no unit)",
+                          legend={"orientation": "h", "y": -0.2})
+        st.plotly_chart(fig, key="sel_map")
+
+st.subheader("Stored selection runs")
+runs = call(selection_runs.list_runs)
+if runs is not FAILED:
+    if runs:
+        st.dataframe(pd.DataFrame([{
+            "run": r["id"], "created (UTC)": when(r["created_at"]), "by": r["by"],
+            "properties": ", ".join(r["properties"]), "grade": r["grade"], "method": r["method"],
+            "picks": r["picks"], "results back": r["answered_picks"], "status": r["status"],
+            "total cost": num(r["total_cost"])} for r in runs]), hide_index=True, key="sel_runs")
+        pick = st.selectbox("Results of run", [r["id"] for r in runs], index=len(runs) - 1,
+                            key="sel_run_detail")
+        detail = call(selection_runs.run_detail, pick)
+        if detail is not FAILED:
+            st.dataframe(pd.DataFrame([{
+                "rank": p["rank"], "sample": p["sample_id"], "tests": p["tests"],
+                "results": "; ".join(f"{x['method']}: {num(x['value'])} ({x['status']})"
+                                     for x in p["results"]) or "waiting"}
+                for p in detail["picks"]]), hide_index=True, key="sel_run_picks")
+    else:
+        st.write("No stored runs yet.")
