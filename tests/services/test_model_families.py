@@ -11,6 +11,7 @@ the synthetic data (an admin edit, as a lab would for a screening model).
 from __future__ import annotations
 
 import ast
+import re
 from pathlib import Path
 
 import numpy as np
@@ -30,7 +31,7 @@ from seed_demo.synthetic import generate_population, reference_noise
 from tests.conftest import PASSWORD, populate_basics
 from tests.factories import copy_sqlite, write_population_csv, write_reference_csv
 
-N = 70
+N = 84
 CODES = ("RON", "MON", "BENZENE", "ETHANOL", "AROMATICS", "T50")
 METHOD = {"RON": "ASTM D2699", "MON": "ASTM D2700", "BENZENE": "ASTM D5769",
           "ETHANOL": "ASTM D4815", "AROMATICS": "ASTM D5769", "T50": "ASTM D86"}
@@ -105,7 +106,8 @@ def predict_trace_verify(engine, actors, label, spectrum_ids=(1, 2, 3)):
         report = audit_svc.verify_registry(s, actors["auditor"])
     jsonschema = pytest.importorskip("jsonschema")
     jsonschema.validate(doc, load_schema())
-    assert report.ok, report
+    assert report.intact, report.problems
+    assert report.checked.get("model_version", 0) >= 1
     assert doc["integrity"]["artifact_hash_ok"] and doc["integrity"]["signatures_match_content"]
     return batch, doc
 
@@ -115,7 +117,11 @@ SPECS = {
     ModelFamily.CLS: ("ETHANOL-A", {"components": ["ETHANOL", "AROMATICS", "BENZENE"],
                                     "baseline": "linear",
                                     "recipe": [{"step": "region", "keep": [[1000, 1120]]}]}),
-    ModelFamily.NEIGHBOURS: ("T50-A", {"n_neighbors": 3, "space": "scores"}),
+    # a limit wide enough for every validation sample (the default limit, the largest
+    # nearest-neighbour distance inside the calibration set, leaves one of them without a
+    # value: test_lookup_without_a_value_fails_validation)
+    ModelFamily.NEIGHBOURS: ("T50-A", {"n_neighbors": 3, "space": "scores",
+                                       "distance_limit": 1000.0}),
 }
 
 
@@ -145,6 +151,20 @@ def test_neighbour_lookup_says_it_is_not_a_model(reg):
     assert "look-up of similar samples, not a model" in doc["model"]["description"]
 
 
+def test_lookup_without_a_value_fails_validation(reg):
+    """A validation sample farther from every calibration sample than the look-up's limit
+    gets no value; the record says so and does not pass (the statistics cover the rest)."""
+    engine, actors, _ = reg
+    label = train(engine, actors, "T50-A", ModelFamily.NEIGHBOURS,
+                  {"n_neighbors": 3, "space": "scores"})
+    with session_scope(engine) as s:
+        rec = models.validate_model(s, actors["reviewer"], label)
+    without = rec.statistics["n_without_value"]
+    assert without >= 1 and not rec.passed
+    assert rec.n == 21 - without  # the set holds 21 validation samples (a quarter of 84)
+    assert any("got no value" in r for r in rec.reasons)
+
+
 def test_band_model_value_follows_the_band_calibration(reg):
     """The stored value is the artifact's own calibration of the band area (y = b0 + b1·v,
     v from band_values on the same spectrum): the service adds nothing of its own."""
@@ -172,7 +192,8 @@ def test_derived_property_points_to_its_inputs_and_falls_due_when_one_changes(re
     b1, b0 = np.polyfit(pop.properties["AROMATICS"], sens, 1)
     arom = train(engine, actors, "AROMATICS-A", ModelFamily.PLS, max_components=5)
     into_service(engine, actors, arom)
-    formula = f"RON - ({b0:.4f} + {b1:.5f} * AROMATICS)"
+    b0, b1 = round(float(b0), 4), round(float(b1), 5)  # as written into the formula
+    formula = f"RON - ({b0} + {b1} * AROMATICS)"
     label = train(engine, actors, "MON-A", ModelFamily.DERIVED, {"formula": formula})
     into_service(engine, actors, label)
     batch, doc = predict_trace_verify(engine, actors, label)
@@ -226,6 +247,7 @@ def test_services_do_not_branch_on_the_family():
         if path.name == "trainers.py":
             continue
         for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
-            if isinstance(node, (ast.Compare, ast.Match)) and "family" in ast.unparse(node).lower():
+            if isinstance(node, (ast.Compare, ast.Match)) and re.search(
+                    r"\.family\b|ModelFamily", ast.unparse(node)):
                 found.append((path.name, ast.unparse(node)))
     assert found == [("models.py", "mv.family != ModelFamily.PLS")]
