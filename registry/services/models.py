@@ -86,6 +86,21 @@ def read_recipe(path: str | Path | None) -> list[dict[str, Any]]:
     return doc
 
 
+def read_options(path: str | Path | None) -> dict[str, Any]:
+    """A family's options from a JSON object file (see :mod:`registry.services.trainers`)."""
+    if path is None:
+        return {}
+    try:
+        doc = json.loads(Path(path).read_text(encoding="utf-8"))
+    except OSError as exc:
+        raise InputError(f"cannot read recipe: {exc}", file=str(path)) from None
+    except json.JSONDecodeError as exc:
+        raise InputError(f"not valid JSON: {exc.msg}", file=str(path), line=exc.lineno) from None
+    if not isinstance(doc, dict):
+        raise InputError("a family recipe is a JSON object of options", file=str(path))
+    return doc
+
+
 def _next_label(session: Session, prop: Property, grade: Grade | None) -> str:
     stem = f"{prop.code}-{grade.code if grade else 'ALL'}"
     n = session.exec(select(func.count()).select_from(ModelVersion).where(

@@ -251,3 +251,31 @@ def test_services_do_not_branch_on_the_family():
                     r"\.family\b|ModelFamily", ast.unparse(node)):
                 found.append((path.name, ast.unparse(node)))
     assert found == [("models.py", "mv.family != ModelFamily.PLS")]
+
+
+def test_cli_trains_a_family_from_a_recipe_file_and_lists_the_family(reg, tmp_path):
+    import json
+
+    from typer.testing import CliRunner
+
+    from registry.cli import app
+
+    engine, actors, _ = reg
+    env = {"SPECLEDGER_DATABASE_URL": str(engine.url), "SPECLEDGER_USER": "anton",
+           "SPECLEDGER_PASSWORD": PASSWORD}
+    runner = CliRunner()
+    recipe = tmp_path / "band.json"
+    recipe.write_text(json.dumps({"band": [664, 684], "measure": "height"}))
+    res = runner.invoke(app, ["model", "train", "--calset", "BENZENE-A", "--family", "band",
+                              "--recipe", str(recipe), "--format", "json"], env=env)
+    assert res.exit_code == 0, res.output
+    label = json.loads(res.stdout)["label"]
+    res = runner.invoke(app, ["model", "train", "--calset", "BENZENE-A", "--family", "band",
+                              "--recipe", str(recipe), "--max-components", "3"], env=env)
+    assert res.exit_code != 0 and "--max-components" in res.output
+    res = runner.invoke(app, ["model", "list", "--format", "json"], env=env)
+    assert res.exit_code == 0, res.output
+    assert [(r["label"], r["family"]) for r in json.loads(res.stdout)] == [(label, "band")]
+    res = runner.invoke(app, ["predict", "--model", label, "--spectrum", "1"], env=env)
+    assert res.exit_code == 0, res.output
+    assert "F0000" in res.output and "not_in_service" in res.output  # a draft is not in service
