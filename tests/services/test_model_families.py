@@ -279,3 +279,36 @@ def test_cli_trains_a_family_from_a_recipe_file_and_lists_the_family(reg, tmp_pa
     res = runner.invoke(app, ["predict", "--model", label, "--spectrum", "1"], env=env)
     assert res.exit_code == 0, res.output
     assert "F0000" in res.output and "not_in_service" in res.output  # a draft is not in service
+
+
+def test_cls_takes_k_from_pure_component_spectra_imported_as_samples(reg, tmp_path):
+    """K from a pure-component reference spectrum: the row of K is the imported spectrum
+    (after the set's preprocessing) divided by the stated concentration — Beer–Lambert,
+    absorbance proportional to concentration (Haaland & Easterling, Appl. Spectrosc.
+    34:539, 1980) — and the version names the sample and spectra it came from."""
+    from registry.chemometrics.fitted import load_fitted
+    from registry.spectra.formats import write_csv_spectra
+    from registry.spectra.record import SpectrumRecord
+    from seed_demo.synthetic.spectra import pure_component_spectra
+
+    engine, actors, pop = reg
+    pure = (pure_component_spectra(["ethanol"], axis=pop.axis)[0] * 0.5).astype(np.float32)
+    write_csv_spectra([SpectrumRecord("PURE-ETOH", pop.axis, pure)], tmp_path / "pure.csv")
+    with session_scope(engine) as s:
+        sid = intake.import_spectra(s, actors["analyst"], [tmp_path / "pure.csv"],
+                                    instrument="IR-100").spectrum_ids[0]
+    options = {"pure_spectra": {"ETHANOL": {"sample": "PURE-ETOH", "value": 100.0}},
+               "baseline": "offset", "recipe": [{"step": "region", "keep": [[1000, 1120]]}]}
+    label = train(engine, actors, "ETHANOL-A", ModelFamily.CLS, options)
+    with session_scope(engine) as s:
+        mv = s.exec(select(ModelVersion).where(ModelVersion.label == label)).one()
+        fitted = load_fitted(mv.artifact, mv.artifact_sha256)
+        doc = audit_svc.trace(s, actors["auditor"], model=label)
+    kept = (pop.axis >= 1000) & (pop.axis <= 1120)
+    np.testing.assert_allclose(fitted.estimator.K_[0], pure.astype(np.float64)[kept] / 100.0,
+                               rtol=1e-12)
+    lineage = doc["model"]["settings"]["pure_spectra"]["ETHANOL"]
+    assert lineage == {"sample": "PURE-ETOH", "spectrum_ids": [sid], "value": 100.0}
+    with pytest.raises(InputError, match="ETHANOL"):
+        train(engine, actors, "ETHANOL-A", ModelFamily.CLS,
+              {"pure_spectra": {"AROMATICS": {"sample": "PURE-ETOH", "value": 100.0}}})
