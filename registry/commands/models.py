@@ -7,7 +7,10 @@ from typing import Annotated, Optional
 
 import typer
 
+from ..chemometrics.family_names import ModelFamily
+from ..chemometrics.fitted import DESCRIPTIONS
 from ..chemometrics.validation import precision_summary, precision_text
+from ..errors import InputError
 from ..services import models as svc
 from ..services import predictions as pred_svc
 from ..chemometrics.crossval import SELECTION_RULES
@@ -21,27 +24,45 @@ model_app = typer.Typer(help="Model versions and their lifecycle.", no_args_is_h
 @model_app.command("train")
 @handle_errors
 def model_train(calset: Annotated[str, typer.Option("--calset")],
-                recipe: Annotated[Optional[Path], typer.Option("--recipe", help="Recipe JSON file.")] = None,
-                max_components: Annotated[int, typer.Option("--max-components")] = 20,
-                cv: Annotated[int, typer.Option("--cv", help="Number of folds.")] = 10,
-                cv_method: Annotated[choice(FOLD_METHODS), typer.Option(
+                family: Annotated[choice(tuple(f.value for f in ModelFamily)), typer.Option(
+                    "--family", help="pls (default), band, cls, derived or neighbours")] = "pls",
+                recipe: Annotated[Optional[Path], typer.Option(
+                    "--recipe", help="JSON file: for pls the preprocessing steps; for the other "
+                                     "families an object of the family's options "
+                                     "(registry/services/trainers.py).")] = None,
+                max_components: Annotated[Optional[int], typer.Option("--max-components")] = None,
+                cv: Annotated[Optional[int], typer.Option("--cv", help="Number of folds.")] = None,
+                cv_method: Annotated[Optional[choice(FOLD_METHODS)], typer.Option(
                     "--cv-method", help="venetian (default), random (seeded), kfold (contiguous "
-                                        "blocks) or loso")] = "venetian",
-                selection: Annotated[choice(SELECTION_RULES), typer.Option("--selection")] = "haaland-thomas",
+                                        "blocks) or loso")] = None,
+                selection: Annotated[Optional[choice(SELECTION_RULES)], typer.Option("--selection")] = None,
                 components: Annotated[Optional[int], typer.Option("--components", help="Override the chosen size.")] = None,
                 parent: Annotated[Optional[str], typer.Option("--parent")] = None,
                 db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
-    """Train a draft model version on a frozen calibration set."""
-    steps = svc.read_recipe(recipe)
+    """Train a draft model version of one family on a frozen calibration set."""
+    pls_options = {"max_components": max_components, "folds": cv, "cv_method": cv_method,
+                   "selection": selection, "n_components": components}
+    if family == ModelFamily.PLS:
+        steps, options = svc.read_recipe(recipe), None
+    else:
+        given = [f"--{k.replace('_', '-')}" for k, v in pls_options.items() if v is not None]
+        if given:
+            raise InputError(f"{given[0]} is a PLS option; give the {family} family's options "
+                             "in --recipe", field=given[0])
+        steps, options = None, svc.read_options(recipe)
     with transaction(db) as session:
-        mv = svc.train_model_version(session, login(session, as_user), calset, recipe=steps,
-                                     max_components=max_components, folds=cv, cv_method=cv_method,
-                                     selection=selection, n_components=components, parent=parent)
-        doc = {"id": mv.id, "label": mv.label, "state": mv.state, "components": mv.n_components,
-               "cv": mv.cv, "artifact_sha256": mv.artifact_sha256}
-    curve = doc["cv"]["rmsecv"]
+        mv = svc.train_model_version(session, login(session, as_user), calset, family=family,
+                                     options=options, recipe=steps, parent=parent,
+                                     **{k: v for k, v in pls_options.items() if v is not None})
+        doc = {"id": mv.id, "label": mv.label, "family": mv.family, "state": mv.state,
+               "components": mv.n_components, "cv": mv.cv,
+               "artifact_sha256": mv.artifact_sha256}
+    curve = doc["cv"].get("rmsecv")
 
     def text() -> str:
+        if not curve:
+            return (f"model {mv.label} trained (draft, {doc['family']}): "
+                    f"{DESCRIPTIONS[ModelFamily(doc['family'])]}")
         lines = [f"model {mv.label} trained (draft): {mv.n_components} components chosen by "
                  f"{doc['cv']['selection_rule']}", "  A   RMSECV"]
         lines += [f"  {a:<3d} {v:.4g}" + ("  <- chosen" if a == mv.n_components else "")
@@ -73,7 +94,8 @@ def model_list(prop: Annotated[Optional[str], typer.Option("--property")] = None
     """List model versions."""
     with transaction(db) as session:
         rows = svc.list_models(session, login(session, as_user), property_code=prop, state=state)
-    emit(fmt, rows, lambda: table(rows, ["id", "label", "property", "grade", "state", "components",
+    emit(fmt, rows, lambda: table(rows, ["id", "label", "property", "grade", "family", "state",
+                                         "components",
                                          "rmsecv", "last_validated_at"]))
 
 
@@ -115,16 +137,25 @@ def predict(model: Annotated[str, typer.Option("--model")],
                                  files=file, instrument=instrument)
 
     def text() -> str:
-        rows = [{"prediction": p["id"], "sample": p["sample"], "value": round(p["value"], 4),
-                 "flags": ",".join(p["flags"]) or "-",
-                 "leverage": f"{p['diagnostics']['leverage']:.3g}/{p['diagnostics']['leverage_limit']:.3g}",
-                 "Q": f"{p['diagnostics']['q']:.3g}/{p['diagnostics']['q_limit']:.3g}",
-                 "NN": f"{p['diagnostics']['nn_distance']:.3g}/{p['diagnostics']['nn_limit']:.3g}"}
+        rows = [{"prediction": p["id"] if p["id"] is not None else "-", "sample": p["sample"],
+                 "value": round(p["value"], 4) if p["value"] is not None else "no value",
+                 "flags": ",".join(p["flags"]) or "-", "checks": _checks_text(p["diagnostics"])}
                 for p in batch.predictions]
         note = ("\nFlagged results are outside what the model was validated for; confirm by the "
                 "reference method.") if any(p["flags"] for p in batch.predictions) else ""
         return table(rows) + note
     emit(fmt, batch.__dict__, text)
+
+
+def _checks_text(diagnostics: dict) -> str:
+    """Each check value against its limit where the family names one (``q`` / ``q_limit``),
+    for whatever family made the prediction."""
+    parts = []
+    for key, value in diagnostics.items():
+        limit = diagnostics.get(f"{key}_limit")
+        if isinstance(value, (int, float)) and isinstance(limit, (int, float)):
+            parts.append(f"{key} {value:.3g}/{limit:.3g}")
+    return " ".join(parts) or "-"
 
 
 def register(app: typer.Typer) -> None:

@@ -46,6 +46,8 @@ class TriggerKind(StrEnum):
     COVERAGE_DRIFT = "coverage_drift"
     INSTRUMENT_SERVICE = "instrument_service"
     METHOD_CHANGE = "method_change"
+    #: a property whose results a derived version combines got a new version in service
+    INPUT_CHANGE = "input_change"
 
 
 @dataclass(frozen=True)

@@ -24,8 +24,9 @@ from sqlmodel import Session
 
 from ..catalog import precision_at
 from ..chemometrics.artifact import q_limit_of
+from ..chemometrics.fitted import DESCRIPTIONS, load_fitted
 from ..chemometrics.validation import precision_summary
-from ..errors import InputError, NotFoundError
+from ..errors import InputError, IntegrityError, NotFoundError
 from ..lifecycle.permissions import Action
 from ..storage.lookups import get_model
 from ..storage.models import (AuditEvent, CalibrationMember, CalibrationSet, Deployment, Grade,
@@ -252,6 +253,8 @@ def _model_doc(session: Session, lk: _Lookups, mv: ModelVersion, cs: Calibration
                if 0 < mv.n_components <= len(rmsecv) else None,
                "n_spectra": (mv.cv or {}).get("n_spectra"),
                "n_samples": (mv.cv or {}).get("n_samples")},
+        "description": DESCRIPTIONS[mv.family],
+        "settings": _settings(mv) if artifact_ok else None,
         "artifact_sha256": mv.artifact_sha256, "artifact_hash_ok": artifact_ok,
         "q_limit": q_limit_of(mv.artifact, mv.artifact_sha256) if artifact_ok else None,
         "last_validated_at": _t(mv.last_validated_at),
@@ -274,6 +277,14 @@ def _model_doc(session: Session, lk: _Lookups, mv: ModelVersion, cs: Calibration
         "audit_events": [{"seq": e.id, "at": _t(e.occurred_at), "user": e.user_name,
                           "action": e.action, "hash": e.hash} for e in events],
     })
+
+
+def _settings(mv: ModelVersion) -> dict | None:
+    """The family's settings and fitted figures from the (verified) artifact."""
+    try:
+        return load_fitted(mv.artifact, mv.artifact_sha256).summary()
+    except (IntegrityError, InputError):
+        return None
 
 
 def _qc_at(session: Session, lk: _Lookups, mv: ModelVersion, at: datetime,
@@ -431,7 +442,14 @@ def _prediction_parts(session: Session, lk: _Lookups, pred: Prediction, doc: dic
         "unit": prop.unit if prop else None, "model": mv.label,
         "instrument": lk.serial(pred.instrument_id), "predicted_at": _t(pred.predicted_at),
         "by": lk.user(pred.user_id), "flags": list(pred.flags or []),
-        "diagnostics": pred.diagnostics or {}}
+        "diagnostics": pred.diagnostics or {},
+        # a derived result: each input result it combined and the version that gave it
+        "inputs": [{"property": code, "model": link.get("model"),
+                    "model_version_id": link.get("model_version_id"),
+                    "prediction_id": link.get("prediction_id"), "value": link.get("value"),
+                    "flags": link.get("flags", [])}
+                   for code, link in sorted(((pred.diagnostics or {}).get("inputs")
+                                             or {}).items())]}
     doc["spectrum"] = {**_spectrum_doc(lk, sp), "hash_ok": sp_ok, "sample_id": sample.external_id,
                        "axis": {"id": axis.id, "unit": axis.unit, "n_points": axis.n_points,
                                 "first_x": axis.first_x, "last_x": axis.last_x,

@@ -82,8 +82,11 @@ def _spectrum_text(sp: dict) -> str:
 def _model_node(m: dict) -> Node:
     kids: list[Node] = [
         (f"recipe: {_recipe(m['recipe'])}", []),
-        (f"{m['family']}, {m['n_components']} components; RMSECV {_num(m['cv'].get('rmsecv_at_selected'))} "
-         f"({m['cv'].get('method')}, {m['cv'].get('n_folds')} folds, {m['cv'].get('selection_rule')})", []),
+        (f"{m['family']}: {m.get('description') or ''}", []),
+        (f"{m['n_components']} components; RMSECV {_num(m['cv'].get('rmsecv_at_selected'))} "
+         f"({m['cv'].get('method')}, {m['cv'].get('n_folds')} folds, {m['cv'].get('selection_rule')})"
+         if m["cv"].get("method") != "none" else
+         f"{m['n_components']} fitted parameters; no cross-validation curve", []),
         (f"artifact {m['artifact_sha256']} [{_ok(m['artifact_hash_ok'])}]", []),
         (f"Q-residual limit: {describe_q_limit(m.get('q_limit'))}", []),
         ("state history", [(f"{_when(h['at'])} {h['from']} → {h['to']} by {h['by']}"
@@ -196,7 +199,10 @@ def tree(doc: dict) -> Node:
         value = f"{_num(p['value'], 6)} {p['unit'] or ''}".strip()
         kids.append((f"prediction {p['id']}: {p['property']} = {value}"
                      f" on {p['instrument']} at {_when(p['predicted_at'])} by {p['by']}; flags: "
-                     f"{', '.join(p['flags']) or 'none'}", []))
+                     f"{', '.join(p['flags']) or 'none'}",
+                     [(f"input {i['property']} = {_num(i['value'], 6)}: prediction "
+                       f"{i['prediction_id']} by model {i['model']}", [])
+                      for i in p.get("inputs") or []]))
     sp = doc.get("spectrum")
     if sp:
         kids.append((f"spectrum #{sp['id']} of sample {sp['sample_id']} sha256 {sp['sha256']} "

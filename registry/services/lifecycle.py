@@ -52,6 +52,7 @@ from .admin import get_instrument
 from .auth import verify_signer
 from .context import Actor, audit, authorize
 from .models import get_model, record_state_change
+from .revalidation import raise_input_change_triggers
 
 ENTITY = "model_version"
 
@@ -390,6 +391,8 @@ def activate_model(session: Session, actor: Actor, label: str, *, instrument: st
                 "deployment_id": deployment.id, "reason": reason, "signature_id": sig.id,
                 "meaning": sig.meaning, "compatibility": compat, "superseded": superseded},
           hashes=_signature_hashes(sig))
+    if old_state != mv.state:  # a new version of the property went into service
+        raise_input_change_triggers(session, mv)
     return _result(mv, old_state, actor, sig, deployment)
 
 

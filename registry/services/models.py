@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -11,20 +12,21 @@ from sqlalchemy import func
 from sqlmodel import Session, select
 
 from ..catalog import precision_at
-from ..chemometrics import AcceptanceCriteria, TrainedModel, train_model, validation_statistics, verdict
+from ..chemometrics import AcceptanceCriteria, TrainedModel, validation_statistics, verdict
 from ..chemometrics.artifact import q_limit_of
+from ..chemometrics.family_names import ModelFamily
+from ..chemometrics.fitted import DESCRIPTIONS, FittedModel, load_fitted
 from ..chemometrics.validation import precision_summary
-from ..errors import InputError, NotFoundError
+from ..errors import InputError, IntegrityError, NotFoundError, StateError
 from ..lifecycle.permissions import Action
 from ..lifecycle.states import (CURRENT_MODEL_PREFERENCE, IN_SERVICE_STATES, LifecycleAction,
                                 ModelState, as_state, check_transition)
 from ..lineage.content_hashes import artifact_hash, validation_record_hash
-from ..spectra.axes import on_axis
 from ..storage.lookups import get_model
 from ..storage.models import (CalibrationSet, Grade, ModelStateChange, ModelVersion, Property,
                               ReferenceMethod, ValidationRecord)
 from ..storage.revalidation_store import clear_answered_triggers
-from ..storage.spectra_store import axis_values
+from ..storage.spectra_store import axis_values, load_on_axis
 from .calibration import calibration_data, get_calset, members_of
 from .context import Actor, audit, authorize
 
@@ -45,11 +47,14 @@ DIAGNOSTICS_CONFIDENCE = 0.99
 VALIDATION_KINDS = ("initial", "local", "general")
 
 
-def current_model(session: Session, prop: Property, grade: Grade) -> ModelVersion | None:
-    """The current model of ``prop`` on ``grade`` (see :data:`CURRENT_MODEL_PREFERENCE`), or None."""
+def current_model(session: Session, prop: Property, grade: Grade | None) -> ModelVersion | None:
+    """The current model of ``prop`` on ``grade`` (None: the all-grades versions; see
+    :data:`CURRENT_MODEL_PREFERENCE`), or None."""
+    on_grade = (ModelVersion.grade_id == grade.id) if grade is not None \
+        else ModelVersion.grade_id.is_(None)
     for states in CURRENT_MODEL_PREFERENCE:
         mv = session.exec(select(ModelVersion).where(
-            ModelVersion.property_id == prop.id, ModelVersion.grade_id == grade.id,
+            ModelVersion.property_id == prop.id, on_grade,
             ModelVersion.state.in_(states)).order_by(ModelVersion.id.desc())).first()
         if mv is not None:
             return mv
@@ -57,7 +62,11 @@ def current_model(session: Session, prop: Property, grade: Grade) -> ModelVersio
 
 
 def load_trained(mv: ModelVersion) -> TrainedModel:
-    """The model's arrays, after checking the artifact against its recorded hash."""
+    """A PLS version's arrays (its score space is what selection and the coverage views
+    use), after checking the artifact against its recorded hash."""
+    if mv.family != ModelFamily.PLS:
+        raise InputError(f"model {mv.label} is a {mv.family} model; only PLS versions have a "
+                         "score space", field="--model")
     return TrainedModel.from_bytes(mv.artifact, mv.artifact_sha256)
 
 
@@ -74,6 +83,21 @@ def read_recipe(path: str | Path | None) -> list[dict[str, Any]]:
         doc = doc["steps"]
     if not isinstance(doc, list):
         raise InputError("a recipe is a JSON list of steps", file=str(path))
+    return doc
+
+
+def read_options(path: str | Path | None) -> dict[str, Any]:
+    """A family's options from a JSON object file (see :mod:`registry.services.trainers`)."""
+    if path is None:
+        return {}
+    try:
+        doc = json.loads(Path(path).read_text(encoding="utf-8"))
+    except OSError as exc:
+        raise InputError(f"cannot read recipe: {exc}", file=str(path)) from None
+    except json.JSONDecodeError as exc:
+        raise InputError(f"not valid JSON: {exc.msg}", file=str(path), line=exc.lineno) from None
+    if not isinstance(doc, dict):
+        raise InputError("a family recipe is a JSON object of options", file=str(path))
     return doc
 
 
@@ -103,55 +127,121 @@ def record_state_change(session: Session, mv: ModelVersion, to_state: ModelState
 
 
 def train_model_version(session: Session, actor: Actor, calset_name: str, *,
-                        recipe: list[dict[str, Any]] | None = None, max_components: int = 20,
-                        folds: int = 10, cv_method: str = "venetian", selection: str = "haaland-thomas",
+                        family: str = ModelFamily.PLS, options: dict[str, Any] | None = None,
+                        recipe: list[dict[str, Any]] | None = None,
+                        max_components: int | None = None, folds: int | None = None,
+                        cv_method: str | None = None, selection: str | None = None,
                         n_components: int | None = None, parent: str | None = None,
-                        random_state: int | None = 0) -> ModelVersion:
-    """Train a draft model version on the calibration members of a frozen set.
+                        random_state: int | None = None) -> ModelVersion:
+    """Train a draft model version of any family on the calibration members of a frozen set.
 
-    Replicate spectra of one sample are kept in one cross-validation fold. Folds default
-    to venetian blinds over the samples (contiguous blocks extrapolate when the set is
-    ordered by time or value); ``random_state`` seeds ``cv_method="random"`` and is
-    recorded with the CV results.
+    ``family`` picks the trainer (:data:`registry.services.trainers.TRAINERS`);
+    ``options`` are that family's options (see that module). The PLS keywords
+    (``recipe``, ``max_components``, ...) are options too, kept as keywords for the PLS
+    callers: given ones are merged into ``options``. For PLS, replicate spectra of one
+    sample are kept in one cross-validation fold; folds default to venetian blinds over
+    the samples, and ``random_state`` seeds ``cv_method="random"``.
     """
+    from .trainers import TRAINERS, TrainingContext
+
     authorize(actor, Action.MODEL_TRAIN)
+    family = as_family(family)
+    keywords = {"recipe": recipe, "max_components": max_components, "folds": folds,
+                "cv_method": cv_method, "selection": selection, "n_components": n_components,
+                "random_state": random_state}
+    if options is not None and not isinstance(options, dict):
+        raise InputError("family options must be a JSON object", field="--recipe")
+    options = {**{k: v for k, v in keywords.items() if v is not None}, **(options or {})}
     cs = get_calset(session, calset_name)
     prop = session.get(Property, cs.property_id)
     grade = session.get(Grade, cs.grade_id) if cs.grade_id else None
     parent_mv = get_model(session, parent) if parent else None
     if parent_mv is not None and parent_mv.property_id != prop.id:
         raise InputError(f"parent {parent_mv.label} models another property", field="--parent")
-    X, y, groups, axis_row, _ = calibration_data(session, cs, "cal")
-    axis = axis_values(axis_row)
-    recipe = recipe if recipe is not None else DEFAULT_RECIPE
-    trained = train_model(X, y, axis, recipe, max_components=max_components, folds=folds,
-                          groups=groups, n_components=n_components, selection=selection,
-                          method=cv_method, random_state=random_state,
-                          confidence=DIAGNOSTICS_CONFIDENCE,
+    X, y, groups, axis_row, members = calibration_data(session, cs, "cal")
+    ctx = TrainingContext(session=session, calset=cs, prop=prop, grade=grade, X=X, y=y,
+                          groups=groups, axis=axis_values(axis_row), members=members,
                           metadata={"property": prop.code, "unit": prop.unit,
                                     "grade": grade.code if grade else None,
-                                    "calibration_set": cs.name, "calibration_set_sha256": cs.sha256})
-    blob = trained.to_bytes()
-    cv = trained.cv
+                                    "calibration_set": cs.name,
+                                    "calibration_set_sha256": cs.sha256})
+    outcome = TRAINERS[family](ctx, options)
+    blob = outcome.fitted.to_bytes()
     mv = ModelVersion(label=_next_label(session, prop, grade), property_id=prop.id,
-                      grade_id=cs.grade_id, recipe=trained.recipe, n_components=trained.n_components,
-                      cv={"rmsecv": [float(v) for v in cv.rmsecv], "press": [float(v) for v in cv.press],
-                          "selected_components": int(cv.selected_components),
-                          "selection_rule": cv.selection_rule, "method": cv.method,
-                          "seed": random_state if cv.method == "random" else None,
-                          "n_folds": int(cv.n_folds), "f_test_p": [float(v) for v in cv.f_test_p],
-                          "n_spectra": int(X.shape[0]), "n_samples": int(len(set(groups.tolist())))},
+                      grade_id=cs.grade_id, family=family, recipe=outcome.recipe,
+                      n_components=outcome.n_parameters, cv=outcome.summary,
                       artifact=blob, artifact_sha256=artifact_hash(blob), axis_id=axis_row.id,
                       parent_id=parent_mv.id if parent_mv else None, calibration_set_id=cs.id,
                       state=ModelState.DRAFT, author_id=actor.id)
     session.add(mv)
     session.flush()
     audit(session, actor, Action.MODEL_TRAIN, entity_type="model_version", entity_id=mv.id,
-          data={"label": mv.label, "calibration_set": cs.name, "n_components": mv.n_components,
-                "selection_rule": cv.selection_rule, "rmsecv_at_selected":
-                    float(cv.rmsecv[mv.n_components - 1]), "recipe": mv.recipe},
+          data={"label": mv.label, "family": family.value, "calibration_set": cs.name,
+                "recipe": mv.recipe, **outcome.audit},
           hashes={"model_version": [(mv.id, mv.artifact_sha256)]})
     return mv
+
+
+def as_family(name: str) -> ModelFamily:
+    try:
+        return ModelFamily(str(name).strip().lower())
+    except ValueError:
+        raise InputError(f"unknown model family {name!r}; known: "
+                         + ", ".join(f.value for f in ModelFamily), field="--family") from None
+
+
+@dataclass
+class SpectraAssessment:
+    """A version's values for stored spectra, with the input results it combined."""
+
+    model: FittedModel
+    y: np.ndarray
+    records: list[dict]
+    inputs: dict[str, dict] = field(default_factory=dict)
+
+
+def input_model(session: Session, mv: ModelVersion, code: str) -> ModelVersion:
+    """The version whose results feed input ``code`` of ``mv``: the current model of that
+    property on ``mv``'s grade."""
+    prop = session.exec(select(Property).where(Property.code == code)).first()
+    if prop is None:
+        raise NotFoundError(f"unknown input property {code!r} of model {mv.label}")
+    grade = session.get(Grade, mv.grade_id) if mv.grade_id else None
+    found = current_model(session, prop, grade)
+    if found is None:
+        raise StateError(f"input {code} of model {mv.label} has no validated, approved or "
+                         "active model")
+    return found
+
+
+def assess_spectra(session: Session, mv: ModelVersion, spectrum_ids: list[int], *,
+                   inputs: dict[str, tuple[ModelVersion, np.ndarray]] | None = None,
+                   model: FittedModel | None = None, depth: int = 0) -> SpectraAssessment:
+    """Values and check records of ``mv`` for stored spectra (any family).
+
+    A version that combines other properties' results (``model.inputs``) gets them for
+    the same spectra: from ``inputs`` (code -> (version, values)) when the caller has
+    them, else from :func:`input_model`'s version, assessed the same way.
+    """
+    if depth > 8:
+        raise InputError(f"model {mv.label}: inputs nest too deep (a formula cycle?)",
+                         field="formula")
+    if model is None:
+        model = load_fitted(mv.artifact, mv.artifact_sha256)
+    X = load_on_axis(session, spectrum_ids, model.axis)
+    given = dict(inputs or {})
+    values, used = {}, {}
+    for code in model.inputs:
+        if code in given:
+            imv, v = given[code]
+        else:
+            imv = input_model(session, mv, code)
+            v = assess_spectra(session, imv, spectrum_ids, depth=depth + 1).y
+        values[code] = v
+        used[code] = {"model": imv.label, "model_version_id": imv.id,
+                      "artifact_sha256": imv.artifact_sha256}
+    out = model.assess(X, values if model.inputs else None)
+    return SpectraAssessment(model, out.y, out.records, used)
 
 
 def _reproducibility_at(session: Session, prop: Property, level: float) -> float | None:
@@ -161,12 +251,11 @@ def _reproducibility_at(session: Session, prop: Property, level: float) -> float
     return precision_at(method.reproducibility, level) if method else None
 
 
-def predict_samples(trained: TrainedModel, X: np.ndarray, groups: np.ndarray):
-    """Predictions per spectrum and their mean per sample (replicates averaged)."""
-    y_spec, diag = trained.predict(X)
+def sample_means(y_spec: np.ndarray, groups: np.ndarray) -> tuple[list, np.ndarray]:
+    """Sample ids in first-seen order and the mean value of each sample's spectra
+    (replicates averaged; NaN when a replicate has no value)."""
     order = list(dict.fromkeys(groups.tolist()))
-    y_sample = np.array([y_spec[groups == g].mean() for g in order])
-    return y_spec, diag, order, y_sample
+    return order, np.array([y_spec[groups == g].mean() for g in order])
 
 
 def validate_model(session: Session, actor: Actor, label: str, *, calset_name: str | None = None,
@@ -191,22 +280,35 @@ def validate_model(session: Session, actor: Actor, label: str, *, calset_name: s
     if not members_of(session, cs, role):
         raise InputError(f"calibration set {cs.name} has no validation members; name "
                          "an independent calibration set to validate on", field="--calset")
-    X, y_spec_ref, groups, axis_row, members = calibration_data(session, cs, role)
-    trained = load_trained(mv)
-    X = on_axis(X, axis_values(axis_row), trained.axis)
-    _, _, order, y_pred = predict_samples(trained, X, groups)
+    members = members_of(session, cs, role)
+    spectrum_ids = [int(sid) for m in members for sid in m.spectrum_ids]
+    groups = np.array([m.sample_id for m in members for _ in m.spectrum_ids])
+    assessed = assess_spectra(session, mv, spectrum_ids)
+    order, y_pred = sample_means(assessed.y, groups)
     ref = {m.sample_id: m.reference_value for m in members}
     y_ref = np.array([ref[g] for g in order])
+    # A family may give no value for a sample (a look-up with no neighbour near enough):
+    # the statistics cover the samples with a value, and the gap is a reason to fail.
+    has_value = np.isfinite(y_pred)
+    without = int(np.count_nonzero(~has_value))
     prop = session.get(Property, mv.property_id)
     R = _reproducibility_at(session, prop, float(y_ref.mean()))
-    stats = validation_statistics(y_ref, y_pred, n_components=None, reproducibility=R)
+    stats = validation_statistics(y_ref[has_value], y_pred[has_value], n_components=None,
+                                  reproducibility=R)
     stats_json = stats.to_json()
     stats_json["n_components"] = mv.n_components
+    stats_json["family"] = mv.family.value
+    stats_json["n_without_value"] = without
+    if assessed.inputs:
+        stats_json["inputs"] = assessed.inputs
     if criteria is None:
         from .properties import acceptance_for
 
         criteria = acceptance_for(prop)
     passed, reasons = verdict(_with_components(stats, mv.n_components), criteria)
+    if without:
+        reasons.append(f"{without} validation sample(s) got no value from {mv.label}")
+        passed = False
     rec = ValidationRecord(model_version_id=mv.id, calibration_set_id=cs.id, user_id=actor.id,
                            kind=kind, n=stats.n, bias=stats.bias, sep=stats.sep,
                            rmsep=stats.rmsep, slope=stats.slope, intercept=stats.intercept,
@@ -234,6 +336,14 @@ def validate_model(session: Session, actor: Actor, label: str, *, calset_name: s
     return rec
 
 
+def _settings(mv: ModelVersion) -> dict | None:
+    """The family's settings and fitted figures (None when the artifact does not verify)."""
+    try:
+        return load_fitted(mv.artifact, mv.artifact_sha256).summary()
+    except (IntegrityError, InputError):
+        return None
+
+
 def _with_components(stats, n_components):
     from dataclasses import replace
 
@@ -254,7 +364,8 @@ def list_models(session: Session, actor: Actor, *, property_code: str | None = N
     props = {p.id: p.code for p in session.exec(select(Property)).all()}
     grades = {g.id: g.code for g in session.exec(select(Grade)).all()}
     return [{"id": m.id, "label": m.label, "property": props[m.property_id],
-             "grade": grades.get(m.grade_id), "state": m.state, "components": m.n_components,
+             "grade": grades.get(m.grade_id), "family": m.family, "state": m.state,
+             "components": m.n_components,
              "rmsecv": m.cv.get("rmsecv", [None] * m.n_components)[m.n_components - 1]
              if m.n_components else None,
              "created_at": m.created_at, "last_validated_at": m.last_validated_at}
@@ -281,7 +392,9 @@ def model_detail(session: Session, actor: Actor, label: str) -> dict:
     return {
         "id": mv.id, "label": mv.label, "property": prop.code, "unit": prop.unit,
         "state": mv.state, "author": users.get(mv.author_id), "created_at": mv.created_at,
-        "family": mv.family, "components": mv.n_components, "recipe": mv.recipe, "cv": mv.cv,
+        "family": mv.family, "description": DESCRIPTIONS[mv.family],
+        "components": mv.n_components, "recipe": mv.recipe, "cv": mv.cv,
+        "settings": _settings(mv),
         "artifact_sha256": mv.artifact_sha256, "q_limit": q_limit_of(mv.artifact, mv.artifact_sha256),
         "parent": session.get(ModelVersion, mv.parent_id).label if mv.parent_id else None,
         "calibration_set": {"name": cs.name, "sha256": cs.sha256, "n_cal": cs.n_cal, "n_val": cs.n_val},

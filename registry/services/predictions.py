@@ -25,11 +25,16 @@ from ..storage.spectra_store import existing_hashes, load_on_axis
 from ..storage.revalidation_store import due_status_of, open_triggers, policy_for
 from ..storage.types import utcnow
 from .context import Actor, audit, authorize
-from .models import get_model, load_trained
+from ..chemometrics.fitted import load_fitted
+from ..plain_json import plain_json
+from .models import assess_spectra, get_model, input_model
 
 #: Checks that say a spectrum lies outside the calibration space (ASTM E1655, from memory); the y-range check is about
 #: the predicted value, not the spectrum, so it is not one of them.
-SPACE_FLAGS = ("leverage", "hotelling_t2", "q_residual", "nearest_neighbour")
+SPACE_FLAGS = ("leverage", "hotelling_t2", "q_residual", "nearest_neighbour",
+               # the other families' spectrum checks of the same kind (band value or baseline
+               # outside the calibration range, CLS residual above its limit)
+               "band_range", "baseline_anchor", "residual")
 
 
 @dataclass
@@ -79,31 +84,84 @@ def predict(session: Session, actor: Actor, label: str, *, spectrum_ids: list[in
     missing = [i for i, s in zip(spectrum_ids, spectra) if s is None]
     if missing:
         raise NotFoundError(f"unknown spectrum id(s): {', '.join(map(str, missing[:10]))}")
-    trained = load_trained(mv)
-    batch = PredictionBatch(model=mv.label)
-    y, diag = trained.predict(load_on_axis(session, [s.id for s in spectra], trained.axis))
-    rows: list[tuple[Spectrum, float, dict, list[str]]] = []
+    return PredictionBatch(model=mv.label, predictions=store_predictions(session, actor, mv, spectra))
+
+
+def _input_predictions(session: Session, actor: Actor, mv: ModelVersion, code: str,
+                       spectra: list[Spectrum]) -> tuple[ModelVersion, np.ndarray, list[dict]]:
+    """The results of input ``code`` for these spectra: the input version's stored
+    prediction of each spectrum when there is one, else a new one (stored and audited
+    like any prediction). Returns (input version, values, {prediction_id, value, flags})."""
+    imv = input_model(session, mv, code)
+    found: dict[int, Prediction] = {}
+    for p in session.exec(select(Prediction).where(
+            Prediction.model_version_id == imv.id,
+            Prediction.spectrum_id.in_([sp.id for sp in spectra]))
+            .order_by(Prediction.id)).all():
+        found[p.spectrum_id] = p  # the latest one wins
+    todo = [sp for sp in spectra if sp.id not in found]
+    made = {d["spectrum_id"]: d for d in store_predictions(session, actor, imv, todo)} if todo else {}
+    links = []
+    for sp in spectra:
+        if sp.id in found:
+            p = found[sp.id]
+            links.append({"prediction_id": p.id, "value": p.value, "flags": list(p.flags)})
+        else:
+            d = made[sp.id]
+            links.append({"prediction_id": d["id"], "value": d["value"], "flags": d["flags"]})
+    values = np.array([np.nan if d["value"] is None else d["value"] for d in links])
+    return imv, values, links
+
+
+def store_predictions(session: Session, actor: Actor, mv: ModelVersion,
+                      spectra: list[Spectrum]) -> list[dict]:
+    """Assess ``spectra`` with ``mv`` (any family), store and audit the results.
+
+    Input results a version combines are taken from (or stored as) predictions of the
+    input versions for the same spectra; each result names them (``inputs``). A result
+    without a value (a family may give none, e.g. no similar sample near enough) is
+    reported and audited but not stored as a prediction.
+    """
+    model = load_fitted(mv.artifact, mv.artifact_sha256)
+    given, links = {}, {}
+    for code in model.inputs:
+        imv, values, links[code] = _input_predictions(session, actor, mv, code, spectra)
+        given[code] = (imv, values)
+    assessed = assess_spectra(session, mv, [s.id for s in spectra], inputs=given, model=model)
     standing: dict[int, list[str]] = {}
-    for k, (sp, rec) in enumerate(zip(spectra, diag.records())):
+    now = utcnow()
+    out = []
+    for k, (sp, rec) in enumerate(zip(spectra, assessed.records)):
         if sp.instrument_id not in standing:  # once per instrument, not per spectrum
             standing[sp.instrument_id] = standing_flags(session, mv, sp.instrument_id)
         flags = list(rec["flags"]) + standing[sp.instrument_id]
-        rows.append((sp, float(y[k]), rec, flags))
-    now = utcnow()
-    for sp, value, rec, flags in rows:
-        p = Prediction(spectrum_id=sp.id, model_version_id=mv.id, instrument_id=sp.instrument_id,
-                       value=value, diagnostics={k: v for k, v in rec.items() if k != "flags"},
-                       flags=flags, predicted_at=now, user_id=actor.id)
-        session.add(p)
-        session.flush()
+        diagnostics = {key: v for key, v in rec.items() if key != "flags"}
+        if links:
+            diagnostics["inputs"] = {code: {**assessed.inputs[code], **{
+                key: links[code][k][key] for key in ("prediction_id", "value", "flags")}}
+                for code in links}
+            if any(links[code][k]["flags"] for code in links):
+                flags.append("input_flagged")
+        value = float(assessed.y[k])
+        pid = None
+        if np.isfinite(value):
+            p = Prediction(spectrum_id=sp.id, model_version_id=mv.id,
+                           instrument_id=sp.instrument_id, value=value,
+                           diagnostics=plain_json(diagnostics), flags=flags, predicted_at=now,
+                           user_id=actor.id)
+            session.add(p)
+            session.flush()
+            pid = p.id
         sample = session.get(Sample, sp.sample_id)
-        batch.predictions.append({"id": p.id, "spectrum_id": sp.id, "sample": sample.external_id,
-                                  "value": value, "flags": flags, "diagnostics": p.diagnostics})
+        out.append({"id": pid, "spectrum_id": sp.id, "sample": sample.external_id,
+                    "value": value if pid is not None else None, "flags": flags,
+                    "diagnostics": plain_json(diagnostics)})
     audit(session, actor, Action.PREDICT, entity_type="model_version", entity_id=mv.id,
-          data={"label": mv.label, "predictions": [[d["id"], d["spectrum_id"], d["value"], d["flags"]]
-                                                   for d in batch.predictions]})
+          data={"label": mv.label, "family": mv.family.value,
+                "predictions": [[d["id"], d["spectrum_id"], d["value"], d["flags"]]
+                                for d in out]})
     check_coverage_drift(session, mv)
-    return batch
+    return out
 
 
 def _existing_ids_for(session: Session, files) -> list[int]:

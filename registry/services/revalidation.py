@@ -234,6 +234,36 @@ def list_triggers(session: Session, actor: Actor, *, label: str | None = None,
             for t in session.exec(q.order_by(RevalidationTrigger.id)).all()]
 
 
+def raise_input_change_triggers(session: Session, mv: ModelVersion) -> list[list]:
+    """``mv`` has just gone into service: every version in service on the same grade that
+    combines results of ``mv``'s property (a derived property) is due for revalidation
+    now, with its inputs as they are from now on. Returns ``[[label, trigger id], ...]``."""
+    from ..chemometrics.fitted import load_fitted
+    from ..errors import IntegrityError
+
+    prop = session.get(Property, mv.property_id)
+    raised = []
+    for other in session.exec(select(ModelVersion).where(
+            ModelVersion.state.in_(IN_SERVICE_STATES), ModelVersion.id != mv.id,
+            ModelVersion.grade_id == mv.grade_id if mv.grade_id is not None
+            else ModelVersion.grade_id.is_(None)).order_by(ModelVersion.id)).all():
+        try:
+            inputs = load_fitted(other.artifact, other.artifact_sha256).inputs
+        except (IntegrityError, InputError):
+            continue  # an artifact that does not verify is reported by trace and audit verify
+        if prop.code not in inputs:
+            continue
+        trig = RevalidationTrigger(model_version_id=other.id, kind=TriggerKind.INPUT_CHANGE.value,
+                                   detail={"property": prop.code, "model": mv.label})
+        session.add(trig)
+        session.flush()
+        audit(session, None, Action.TRIGGER_RAISE, entity_type="model_version",
+              entity_id=other.id, data={"label": other.label, "trigger_id": trig.id,
+                                        "kind": trig.kind, "detail": trig.detail})
+        raised.append([other.label, trig.id])
+    return raised
+
+
 # --------------------------------------------------------------------------- reference methods
 
 #: Edits that change what a reference value means or how precise it is; these make

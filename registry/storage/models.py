@@ -15,6 +15,7 @@ from typing import Any, Optional
 from sqlalchemy import JSON, Column, Index, MetaData, UniqueConstraint
 from sqlmodel import Field, SQLModel
 
+from ..chemometrics.family_names import ModelFamily
 from ..lifecycle.permissions import Action
 from ..lifecycle.states import DeploymentState, ModelState
 from .types import Blob, EnumText, LongText, UTCDateTime, enum_check, utcnow
@@ -295,12 +296,12 @@ class ModelVersion(SQLModel, table=True):
     """A trained model: recipe, chosen size, CV curve and a hashed array artifact."""
 
     __tablename__ = "model_version"
-    __table_args__ = (enum_check("state", ModelState),)
+    __table_args__ = (enum_check("state", ModelState), enum_check("family", ModelFamily))
     id: Optional[int] = Field(default=None, primary_key=True)
     label: str = Field(unique=True, max_length=120)
     property_id: int = Field(foreign_key="property.id", index=True)
     grade_id: Optional[int] = Field(default=None, foreign_key="grade.id", index=True)
-    family: str = Field(default="pls1", max_length=40)
+    family: ModelFamily = _enum(ModelFamily, 40, default=ModelFamily.PLS)
     recipe: list = _json(list)
     n_components: int = 0
     cv: dict = _json()

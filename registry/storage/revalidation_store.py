@@ -42,7 +42,8 @@ def open_triggers(session: Session, mv: ModelVersion) -> list[RevalidationTrigge
 
 def _describe(t: RevalidationTrigger) -> str:
     d = t.detail or {}
-    bits = [f"{k}={v}" for k, v in d.items() if k in ("instrument", "rule", "share", "kind", "method")]
+    bits = [f"{k}={v}" for k, v in d.items() if k in ("instrument", "rule", "share", "kind", "method",
+                                                 "property", "model")]
     return f"raised {t.raised_at:%Y-%m-%d}" + (f"; {', '.join(bits)}" if bits else "")
 
 

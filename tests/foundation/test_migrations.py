@@ -12,6 +12,7 @@ from alembic.autogenerate import compare_metadata
 from alembic.runtime.migration import MigrationContext
 from sqlmodel import select
 
+from registry.chemometrics.family_names import ModelFamily
 from registry.lifecycle.permissions import Action
 from registry.lifecycle.states import DeploymentState, ModelState
 from registry.storage.engine import downgrade, make_engine, session_scope, upgrade
@@ -46,7 +47,7 @@ def test_check_constraints_match_models(any_url):
     assert {name for _, name in expected} >= {
         "ck_model_version_state", "ck_model_state_change_from_state",
         "ck_model_state_change_to_state", "ck_deployment_state", "ck_reference_result_status",
-        "ck_audit_event_action"}
+        "ck_audit_event_action", "ck_model_version_family"}
     engine = make_engine(any_url)
     try:
         inspector = sa.inspect(engine)
@@ -57,6 +58,7 @@ def test_check_constraints_match_models(any_url):
     assert found == expected
     assert expected[("model_version", "ck_model_version_state")] == {s.value for s in ModelState}
     assert expected[("audit_event", "ck_audit_event_action")] == {a.value for a in Action}
+    assert expected[("model_version", "ck_model_version_family")] == {f.value for f in ModelFamily}
 
 
 def _add_rows(engine, actors) -> dict[str, int]:

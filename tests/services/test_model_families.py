@@ -1,0 +1,314 @@
+"""Every model family through the same service path: train → validate → submit → approve
+(another user) → activate → predict → trace → audit verify.
+
+The registry is built from the invented synthetic fuel generator (seed_demo.synthetic)
+through the services; these tests check registry behaviour (lifecycle, lineage, hashes),
+not numerical accuracy, which tests/chemometrics/families checks against outside sources.
+Acceptance rules are loosened where a simple family cannot reach the default SEP rule on
+the synthetic data (an admin edit, as a lab would for a screening model).
+"""
+
+from __future__ import annotations
+
+import ast
+import re
+from pathlib import Path
+
+import numpy as np
+import pytest
+from sqlmodel import select
+
+from registry.chemometrics.family_names import ModelFamily
+from registry.errors import InputError
+from registry.lineage.trace import load_schema
+from registry.services import audit as audit_svc
+from registry.services import calibration, intake, lifecycle, models, predictions, references
+from registry.services.properties import edit_property
+from registry.services.revalidation import list_triggers
+from registry.storage.engine import make_engine, session_scope, upgrade
+from registry.storage.models import ModelVersion, Prediction
+from seed_demo.synthetic import generate_population, reference_noise
+from tests.conftest import PASSWORD, populate_basics
+from tests.factories import copy_sqlite, write_population_csv, write_reference_csv
+
+N = 84
+CODES = ("RON", "MON", "BENZENE", "ETHANOL", "AROMATICS", "T50")
+METHOD = {"RON": "ASTM D2699", "MON": "ASTM D2700", "BENZENE": "ASTM D5769",
+          "ETHANOL": "ASTM D4815", "AROMATICS": "ASTM D5769", "T50": "ASTM D86"}
+LOOSE = {"max_sep_over_sigma_r": None, "bias_alpha": 1e-6}
+
+
+@pytest.fixture(scope="module")
+def built(tmp_path_factory):
+    """A registry with N referenced gasoline samples for six properties and one calibration
+    set per property (a quarter held out by Duplex); built once, copied per test."""
+    root = tmp_path_factory.mktemp("families")
+    url = f"sqlite:///{root / 'base.db'}"
+    upgrade(url)
+    engine = make_engine(url)
+    actors = populate_basics(engine)
+    pop = generate_population(N, family="gasoline", seed=5)
+    ids = write_population_csv(root / "spectra.csv", pop, "F", "PREM95")
+    rng = np.random.default_rng(5)
+    with session_scope(engine) as s:
+        intake.import_spectra(s, actors["analyst"], [root / "spectra.csv"], instrument="IR-100")
+    for code in CODES:
+        # a result below zero is reported as zero (a concentration cannot be negative)
+        values = np.maximum(reference_noise(code, pop.properties[code].to_numpy(), rng), 0.0)
+        write_reference_csv(root / f"{code}.csv", ids, values, code, METHOD[code])
+        with session_scope(engine) as s:
+            references.import_references(s, actors["analyst"], root / f"{code}.csv")
+        with session_scope(engine) as s:
+            edit_property(s, actors["admin"], code, acceptance=LOOSE)
+            calibration.create_calibration_set(s, actors["lab_manager"], f"{code}-A",
+                                               property_code=code, grade_code="PREM95",
+                                               all_referenced=True, validation="duplex:0.25")
+    engine.dispose()
+    return root / "base.db", actors, pop
+
+
+@pytest.fixture
+def reg(built, tmp_path):
+    src, actors, pop = built
+    copy_sqlite(src, tmp_path / "r.db")
+    engine = make_engine(f"sqlite:///{tmp_path / 'r.db'}")
+    yield engine, actors, pop
+    engine.dispose()
+
+
+def train(engine, actors, calset, family, options=None, **kw) -> str:
+    with session_scope(engine) as s:
+        return models.train_model_version(s, actors["analyst"], calset, family=family,
+                                          options=options, **kw).label
+
+
+def into_service(engine, actors, label) -> None:
+    """validate → submit → approve → activate, each by the role the rules ask for."""
+    with session_scope(engine) as s:
+        rec = models.validate_model(s, actors["reviewer"], label)
+        assert rec.passed, rec.reasons
+    with session_scope(engine) as s:
+        lifecycle.submit_model(s, actors["analyst"], label, "ready")
+    with session_scope(engine) as s:
+        lifecycle.approve_model(s, actors["reviewer"], label, password=PASSWORD, reason="ok")
+    with session_scope(engine) as s:
+        lifecycle.activate_model(s, actors["lab_manager"], label, instrument="IR-100",
+                                 password=PASSWORD, reason="into service")
+
+
+def predict_trace_verify(engine, actors, label, spectrum_ids=(1, 2, 3)):
+    with session_scope(engine) as s:
+        batch = predictions.predict(s, actors["analyst"], label, spectrum_ids=list(spectrum_ids))
+    stored = [p for p in batch.predictions if p["id"] is not None]
+    assert stored, "no prediction stored"
+    with session_scope(engine) as s:
+        doc = audit_svc.trace(s, actors["auditor"], prediction_id=stored[0]["id"])
+        report = audit_svc.verify_registry(s, actors["auditor"])
+    jsonschema = pytest.importorskip("jsonschema")
+    jsonschema.validate(doc, load_schema())
+    assert report.intact, report.problems
+    assert report.checked.get("model_version", 0) >= 1
+    assert doc["integrity"]["artifact_hash_ok"] and doc["integrity"]["signatures_match_content"]
+    return batch, doc
+
+
+SPECS = {
+    ModelFamily.BAND: ("BENZENE-A", {"band": [664, 684], "measure": "area"}),
+    ModelFamily.CLS: ("ETHANOL-A", {"components": ["ETHANOL", "AROMATICS", "BENZENE"],
+                                    "baseline": "linear",
+                                    "recipe": [{"step": "region", "keep": [[1000, 1120]]}]}),
+    # a limit wide enough for every validation sample (the default limit, the largest
+    # nearest-neighbour distance inside the calibration set, leaves one of them without a
+    # value: test_lookup_without_a_value_fails_validation)
+    ModelFamily.NEIGHBOURS: ("T50-A", {"n_neighbors": 3, "space": "scores",
+                                       "distance_limit": 1000.0}),
+}
+
+
+@pytest.mark.parametrize("family", list(SPECS))
+def test_spectral_family_goes_through_the_whole_lifecycle(reg, family):
+    engine, actors, pop = reg
+    calset, options = SPECS[family]
+    label = train(engine, actors, calset, family, options)
+    into_service(engine, actors, label)
+    batch, doc = predict_trace_verify(engine, actors, label)
+    assert doc["model"]["family"] == family.value
+    assert doc["model"]["description"] == models.DESCRIPTIONS[family]
+    with session_scope(engine) as s:
+        rows = {r["label"]: r for r in models.list_models(s, actors["auditor"])}
+        detail = models.model_detail(s, actors["auditor"], label)
+    assert rows[label]["family"] == family and rows[label]["state"] == "active"
+    assert detail["settings"] is not None
+    for p in batch.predictions:
+        assert "not_in_service" not in p["flags"]
+
+
+def test_neighbour_lookup_says_it_is_not_a_model(reg):
+    engine, actors, _ = reg
+    label = train(engine, actors, "T50-A", ModelFamily.NEIGHBOURS, {"n_neighbors": 1})
+    with session_scope(engine) as s:
+        doc = audit_svc.trace(s, actors["auditor"], model=label)
+    assert "look-up of similar samples, not a model" in doc["model"]["description"]
+
+
+def test_lookup_without_a_value_fails_validation(reg):
+    """A validation sample farther from every calibration sample than the look-up's limit
+    gets no value; the record says so and does not pass (the statistics cover the rest)."""
+    engine, actors, _ = reg
+    label = train(engine, actors, "T50-A", ModelFamily.NEIGHBOURS,
+                  {"n_neighbors": 3, "space": "scores"})
+    with session_scope(engine) as s:
+        rec = models.validate_model(s, actors["reviewer"], label)
+    without = rec.statistics["n_without_value"]
+    assert without >= 1 and not rec.passed
+    assert rec.n == 21 - without  # the set holds 21 validation samples (a quarter of 84)
+    assert any("got no value" in r for r in rec.reasons)
+
+
+def test_band_model_value_follows_the_band_calibration(reg):
+    """The stored value is the artifact's own calibration of the band area (y = b0 + b1·v,
+    v from band_values on the same spectrum): the service adds nothing of its own."""
+    from registry.chemometrics.families import band_values
+    from registry.chemometrics.fitted import load_fitted
+
+    engine, actors, pop = reg
+    label = train(engine, actors, "BENZENE-A", ModelFamily.BAND, SPECS[ModelFamily.BAND][1])
+    with session_scope(engine) as s:
+        batch = predictions.predict(s, actors["analyst"], label, spectrum_ids=[4])
+        mv = s.exec(select(ModelVersion).where(ModelVersion.label == label)).one()
+        est = load_fitted(mv.artifact, mv.artifact_sha256).estimator
+    v = band_values(pop.spectra[3].astype(np.float32).astype(np.float64), pop.axis, (664, 684))
+    expected = est.coefficients_[0] + est.coefficients_[1] * v[0]
+    assert batch.predictions[0]["value"] == pytest.approx(expected, rel=1e-9)
+
+
+def test_derived_property_points_to_its_inputs_and_falls_due_when_one_changes(reg):
+    engine, actors, pop = reg
+    ron = train(engine, actors, "RON-A", ModelFamily.PLS, max_components=5)
+    into_service(engine, actors, ron)
+    # MON from RON and aromatics: an invented screening formula (the synthetic data's
+    # sensitivity RON − MON grows with aromatics); its coefficients come from the data.
+    sens = pop.properties["RON"] - pop.properties["MON"]
+    b1, b0 = np.polyfit(pop.properties["AROMATICS"], sens, 1)
+    arom = train(engine, actors, "AROMATICS-A", ModelFamily.PLS, max_components=5)
+    into_service(engine, actors, arom)
+    b0, b1 = round(float(b0), 4), round(float(b1), 5)  # as written into the formula
+    formula = f"RON - ({b0} + {b1} * AROMATICS)"
+    label = train(engine, actors, "MON-A", ModelFamily.DERIVED, {"formula": formula})
+    into_service(engine, actors, label)
+    batch, doc = predict_trace_verify(engine, actors, label)
+    p = doc["prediction"]
+    assert set(p["diagnostics"]["inputs"]) == {"RON", "AROMATICS"}
+    assert [(i["property"], i["model"]) for i in p["inputs"]] == [("AROMATICS", arom),
+                                                                   ("RON", ron)]
+    with session_scope(engine) as s:
+        for code, link in p["diagnostics"]["inputs"].items():
+            row = s.get(Prediction, link["prediction_id"])
+            mv = s.get(ModelVersion, row.model_version_id)
+            assert mv.label == link["model"] and row.value == link["value"]
+            assert row.spectrum_id == doc["spectrum"]["id"]
+    value = p["value"]
+    inputs = {c: l["value"] for c, l in p["diagnostics"]["inputs"].items()}
+    assert value == pytest.approx(inputs["RON"] - (b0 + b1 * inputs["AROMATICS"]), rel=1e-9)
+    # a new RON version in service makes the derived version due
+    ron2 = train(engine, actors, "RON-A", ModelFamily.PLS, max_components=4)
+    into_service(engine, actors, ron2)
+    with session_scope(engine) as s:
+        open_kinds = {t["kind"] for t in list_triggers(s, actors["auditor"], label=label)}
+    assert "input_change" in open_kinds
+    # revalidating the derived version on the new input answers the trigger
+    with session_scope(engine) as s:
+        rec = models.validate_model(s, actors["reviewer"], label, kind="local")
+    assert rec.statistics["inputs"]["RON"]["model"] == ron2
+    with session_scope(engine) as s:
+        assert not list_triggers(s, actors["auditor"], label=label)
+
+
+def test_unknown_family_and_option_are_refused_before_anything_is_written(reg):
+    engine, actors, _ = reg
+    with pytest.raises(InputError) as err:
+        train(engine, actors, "BENZENE-A", "spline", {})
+    assert err.value.field == "--family"
+    with pytest.raises(InputError) as err:
+        train(engine, actors, "BENZENE-A", ModelFamily.BAND, {"band": [664, 684], "width": 3})
+    assert err.value.field == "width"
+    with session_scope(engine) as s:
+        assert s.exec(select(ModelVersion)).all() == []
+
+
+def test_services_do_not_branch_on_the_family():
+    """Only the trainer table chooses code by family. The one comparison with a family
+    name left in the services is load_trained's refusal of a non-PLS version where a PLS
+    score space is asked for (selection and coverage views)."""
+    import registry.services as pkg
+
+    found = []
+    for path in sorted(Path(pkg.__file__).parent.glob("*.py")):
+        if path.name == "trainers.py":
+            continue
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, (ast.Compare, ast.Match)) and re.search(
+                    r"\.family\b|ModelFamily", ast.unparse(node)):
+                found.append((path.name, ast.unparse(node)))
+    assert found == [("models.py", "mv.family != ModelFamily.PLS")]
+
+
+def test_cli_trains_a_family_from_a_recipe_file_and_lists_the_family(reg, tmp_path):
+    import json
+
+    from typer.testing import CliRunner
+
+    from registry.cli import app
+
+    engine, actors, _ = reg
+    env = {"SPECLEDGER_DATABASE_URL": str(engine.url), "SPECLEDGER_USER": "anton",
+           "SPECLEDGER_PASSWORD": PASSWORD}
+    runner = CliRunner()
+    recipe = tmp_path / "band.json"
+    recipe.write_text(json.dumps({"band": [664, 684], "measure": "height"}))
+    res = runner.invoke(app, ["model", "train", "--calset", "BENZENE-A", "--family", "band",
+                              "--recipe", str(recipe), "--format", "json"], env=env)
+    assert res.exit_code == 0, res.output
+    label = json.loads(res.stdout)["label"]
+    res = runner.invoke(app, ["model", "train", "--calset", "BENZENE-A", "--family", "band",
+                              "--recipe", str(recipe), "--max-components", "3"], env=env)
+    assert res.exit_code != 0 and "--max-components" in res.output
+    res = runner.invoke(app, ["model", "list", "--format", "json"], env=env)
+    assert res.exit_code == 0, res.output
+    assert [(r["label"], r["family"]) for r in json.loads(res.stdout)] == [(label, "band")]
+    res = runner.invoke(app, ["predict", "--model", label, "--spectrum", "1"], env=env)
+    assert res.exit_code == 0, res.output
+    assert "F0000" in res.output and "not_in_service" in res.output  # a draft is not in service
+
+
+def test_cls_takes_k_from_pure_component_spectra_imported_as_samples(reg, tmp_path):
+    """K from a pure-component reference spectrum: the row of K is the imported spectrum
+    (after the set's preprocessing) divided by the stated concentration — Beer–Lambert,
+    absorbance proportional to concentration (Haaland & Easterling, Appl. Spectrosc.
+    34:539, 1980) — and the version names the sample and spectra it came from."""
+    from registry.chemometrics.fitted import load_fitted
+    from registry.spectra.formats import write_csv_spectra
+    from registry.spectra.record import SpectrumRecord
+    from seed_demo.synthetic.spectra import pure_component_spectra
+
+    engine, actors, pop = reg
+    pure = (pure_component_spectra(["ethanol"], axis=pop.axis)[0] * 0.5).astype(np.float32)
+    write_csv_spectra([SpectrumRecord("PURE-ETOH", pop.axis, pure)], tmp_path / "pure.csv")
+    with session_scope(engine) as s:
+        sid = intake.import_spectra(s, actors["analyst"], [tmp_path / "pure.csv"],
+                                    instrument="IR-100").spectrum_ids[0]
+    options = {"pure_spectra": {"ETHANOL": {"sample": "PURE-ETOH", "value": 100.0}},
+               "baseline": "offset", "recipe": [{"step": "region", "keep": [[1000, 1120]]}]}
+    label = train(engine, actors, "ETHANOL-A", ModelFamily.CLS, options)
+    with session_scope(engine) as s:
+        mv = s.exec(select(ModelVersion).where(ModelVersion.label == label)).one()
+        fitted = load_fitted(mv.artifact, mv.artifact_sha256)
+        doc = audit_svc.trace(s, actors["auditor"], model=label)
+    kept = (pop.axis >= 1000) & (pop.axis <= 1120)
+    np.testing.assert_allclose(fitted.estimator.K_[0], pure.astype(np.float64)[kept] / 100.0,
+                               rtol=1e-12)
+    lineage = doc["model"]["settings"]["pure_spectra"]["ETHANOL"]
+    assert lineage == {"sample": "PURE-ETOH", "spectrum_ids": [sid], "value": 100.0}
+    with pytest.raises(InputError, match="ETHANOL"):
+        train(engine, actors, "ETHANOL-A", ModelFamily.CLS,
+              {"pure_spectra": {"AROMATICS": {"sample": "PURE-ETOH", "value": 100.0}}})
