@@ -70,15 +70,20 @@ def load_trained(mv: ModelVersion) -> TrainedModel:
     return TrainedModel.from_bytes(mv.artifact, mv.artifact_sha256)
 
 
-def read_recipe(path: str | Path | None) -> list[dict[str, Any]]:
-    if path is None:
-        return DEFAULT_RECIPE
+def _read_json_file(path: str | Path) -> Any:
+    """A recipe or options file's JSON; errors name the file (and the line)."""
     try:
-        doc = json.loads(Path(path).read_text(encoding="utf-8"))
+        return json.loads(Path(path).read_text(encoding="utf-8"))
     except OSError as exc:
         raise InputError(f"cannot read recipe: {exc}", file=str(path)) from None
     except json.JSONDecodeError as exc:
         raise InputError(f"not valid JSON: {exc.msg}", file=str(path), line=exc.lineno) from None
+
+
+def read_recipe(path: str | Path | None) -> list[dict[str, Any]]:
+    if path is None:
+        return DEFAULT_RECIPE
+    doc = _read_json_file(path)
     if isinstance(doc, dict) and "steps" in doc:
         doc = doc["steps"]
     if not isinstance(doc, list):
@@ -90,12 +95,7 @@ def read_options(path: str | Path | None) -> dict[str, Any]:
     """A family's options from a JSON object file (see :mod:`registry.services.trainers`)."""
     if path is None:
         return {}
-    try:
-        doc = json.loads(Path(path).read_text(encoding="utf-8"))
-    except OSError as exc:
-        raise InputError(f"cannot read recipe: {exc}", file=str(path)) from None
-    except json.JSONDecodeError as exc:
-        raise InputError(f"not valid JSON: {exc.msg}", file=str(path), line=exc.lineno) from None
+    doc = _read_json_file(path)
     if not isinstance(doc, dict):
         raise InputError("a family recipe is a JSON object of options", file=str(path))
     return doc

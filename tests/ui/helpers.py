@@ -56,3 +56,15 @@ def array(v) -> np.ndarray:
         out = np.frombuffer(base64.b64decode(v["bdata"]), dtype=np.dtype(v["dtype"]))
         return out.reshape(v["shape"]) if "shape" in v and isinstance(v["shape"], list) else out
     return np.asarray(v)
+
+
+def service(reg, fn, *args, role="auditor", **kw):
+    """``fn(session, actor, ...)`` on the registry ``reg`` as the user of ``role``."""
+    from registry.storage.engine import make_engine, session_scope
+
+    engine = make_engine(reg.url)
+    try:
+        with session_scope(engine) as s:
+            return fn(s, reg.actors[role], *args, **kw)
+    finally:
+        engine.dispose()

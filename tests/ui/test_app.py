@@ -11,20 +11,10 @@ import numpy as np
 import pytest
 
 from registry.services import models, qc, selection_runs, views
-from registry.storage.engine import make_engine, session_scope
 from tests.factories import write_population_csv
 from seed_demo.synthetic import generate_population
-from tests.ui.helpers import PAGES, array, frame, open_page, plotly_specs, signed_in, texts
+from tests.ui.helpers import PAGES, array, frame, open_page, plotly_specs, service, signed_in, texts
 from ui.common import CAUTION
-
-
-def service(reg, fn, *args, role="auditor", **kw):
-    engine = make_engine(reg.url)
-    try:
-        with session_scope(engine) as s:
-            return fn(s, reg.actors[role], *args, **kw)
-    finally:
-        engine.dispose()
 
 
 def sidebar_captions(at) -> list[str]:

@@ -79,12 +79,7 @@ def rev(review_built, tmp_path, monkeypatch):
 
 
 def call(reg, fn, *args, role="reviewer", **kw):
-    engine = make_engine(reg.url)
-    try:
-        with session_scope(engine) as s:
-            return fn(s, reg.actors[role], *args, **kw)
-    finally:
-        engine.dispose()
+    return service(reg, fn, *args, role=role, **kw)
 
 
 def test_queue_lists_drafts_and_versions_in_review_oldest_first(rev):
@@ -159,7 +154,7 @@ def test_compare_lists_the_samples_removed_and_the_ranges(rev):
 
 
 # --------------------------------------------------------------------------- the page
-from tests.ui.helpers import array, frame, open_page, plotly_specs, signed_in, texts  # noqa: E402
+from tests.ui.helpers import array, frame, open_page, plotly_specs, service, signed_in, texts  # noqa: E402
 
 
 def _signed_in_as(name: str):
