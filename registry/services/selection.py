@@ -523,14 +523,14 @@ def pick_count(setting: SelectionSetting, pool_size: int, *, method: str | None 
     method = method or req.method
     if req.n is not None:
         if req.n > pool_size:
-            raise InputError(f"--n {req.n} but the pool has only {pool_size} candidate samples",
+            raise InputError(f"{req.n} samples asked for but the pool has only {pool_size} candidate samples",
                              field="--n")
         k = req.n
     else:
         k = int(budget_positions(np.full(pool_size, setting.cost_per_sample), req.budget).size)
     if method == "duplex" and k < DUPLEX_MIN_PICKS:
         raise InputError(f"duplex needs at least {DUPLEX_MIN_PICKS} picks; "
-                         f"{'--n' if req.n is not None else 'the budget'} gives {k}",
+                         f"{'the number asked for' if req.n is not None else 'the budget'} gives {k}",
                          field="--n" if req.n is not None else "--budget")
     return k
 

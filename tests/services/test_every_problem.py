@@ -1,4 +1,4 @@
-"""A refused spectrum file lists every bad row, not only the first, on each parsing path;
+"""A refused spectrum file lists every bad row, not only the first;
 messages that reach the front end use no command-line option names.
 
 The files are written here, so the expected line numbers are read off the files themselves.
@@ -7,16 +7,14 @@ The files are written here, so the expected line numbers are read off the files 
 from __future__ import annotations
 
 import ast
-import functools
-import multiprocessing as mp
 import re
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-from registry.errors import FormatError, all_of
-from registry.services import intake, parse_ahead
+
+from registry.services import intake
 from registry.services.references import ImportRejected
 from registry.storage.engine import session_scope
 
@@ -62,20 +60,6 @@ def test_values_beyond_float32_are_listed_row_by_row(registry, tmp_path):
     with pytest.raises(ImportRejected) as err, session_scope(engine) as s:
         intake.import_spectra(s, actors["analyst"], [path], instrument="IR-100")
     assert [e.line for e in err.value.errors] == [2, 5]
-
-
-def _refuse(lines: list[int]):
-    raise all_of([FormatError("value 'x' is not a number", file="f.csv", line=k, field="700")
-                  for k in lines])
-    yield  # a generator, as a producer is
-
-
-@pytest.mark.skipif("fork" not in mp.get_all_start_methods(), reason="needs fork")
-def test_several_problems_found_in_a_child_come_back_whole():
-    with pytest.raises(FormatError) as err:
-        list(parse_ahead.interleaved([functools.partial(_refuse, [4, 9, 11])]))
-    assert [e.line for e in err.value.errors] == [4, 9, 11]
-    assert "(and 2 more problem(s))" in err.value.message
 
 
 def _messages(tree: ast.AST):
