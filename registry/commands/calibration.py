@@ -27,6 +27,7 @@ def calset_create(name: str,
                   db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """Freeze a calibration set (membership, reference values, spectra) under a content hash."""
     ids = svc.read_sample_list(samples) if samples else None
+    svc.validation_fraction(validation)  # checked before anything is written
     val_ids = svc.read_sample_list(validation_samples) if validation_samples else None
     with transaction(db) as session:
         cs = svc.create_calibration_set(

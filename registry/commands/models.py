@@ -11,6 +11,7 @@ from ..chemometrics.family_names import ModelFamily
 from ..chemometrics.fitted import DESCRIPTIONS
 from ..chemometrics.validation import precision_summary, precision_text
 from ..errors import InputError
+from ..lifecycle.states import ModelState
 from ..services import models as svc
 from ..services import predictions as pred_svc
 from ..chemometrics.crossval import SELECTION_RULES
@@ -89,7 +90,7 @@ def model_validate(version: str,
 @model_app.command("list")
 @handle_errors
 def model_list(prop: Annotated[Optional[str], typer.Option("--property")] = None,
-               state: Annotated[Optional[str], typer.Option("--state")] = None,
+               state: Annotated[Optional[choice(ModelState)], typer.Option("--state")] = None,
                db: DbOpt = None, as_user: AsOpt = None, fmt: FormatOpt = Output.text) -> None:
     """List model versions."""
     with transaction(db) as session:

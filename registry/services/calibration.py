@@ -165,6 +165,26 @@ def _sample_by_external(session: Session, ext: str, grade: Grade | None) -> Samp
     return rows[0]
 
 
+def validation_fraction(validation: str | None) -> float | None:
+    """The Duplex validation share of a ``"duplex:FRACTION"`` rule (None: no split).
+
+    Pure parsing, so the CLI can check the option before it opens a transaction.
+    """
+    if not validation or validation == "none":
+        return None
+    kind, _, frac_text = validation.partition(":")
+    if kind != "duplex":
+        raise InputError(f"unknown validation rule {validation!r}; use duplex:FRACTION",
+                         field="--validation")
+    try:
+        fraction = float(frac_text)
+    except ValueError:
+        raise InputError(f"validation fraction {frac_text!r} is not a number", field="--validation") from None
+    if not 0 < fraction < 0.9:
+        raise InputError("validation fraction must lie between 0 and 0.9", field="--validation")
+    return fraction
+
+
 def _assign_roles(session: Session, usable: list[Sample], spectra_ids: dict[int, list[int]],
                   validation: str | None, validation_ids: list[str] | None) -> dict[int, str]:
     roles = {s.id: "cal" for s in usable}
@@ -178,18 +198,9 @@ def _assign_roles(session: Session, usable: list[Sample], spectra_ids: dict[int,
             if s.external_id in wanted:
                 roles[s.id] = "val"
         return roles
-    if not validation or validation == "none":
+    fraction = validation_fraction(validation)
+    if fraction is None:
         return roles
-    kind, _, frac_text = validation.partition(":")
-    if kind != "duplex":
-        raise InputError(f"unknown validation rule {validation!r}; use duplex:FRACTION",
-                         field="--validation")
-    try:
-        fraction = float(frac_text)
-    except ValueError:
-        raise InputError(f"validation fraction {frac_text!r} is not a number", field="--validation") from None
-    if not 0 < fraction < 0.9:
-        raise InputError("validation fraction must lie between 0 and 0.9", field="--validation")
     n_val = int(round(fraction * len(usable)))
     n_cal = len(usable) - n_val
     if n_val < 1 or n_cal < 3:

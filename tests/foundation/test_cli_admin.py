@@ -99,6 +99,8 @@ def test_bad_input_is_one_clear_line_and_writes_nothing(db, args, stdin, needle)
     ["site", "add", "X", "--format", "table"],  # the old name of text output is gone everywhere
     ["grade", "add", "G1", "--family", "gasoline", "--format", "pdf"],
     ["instrument", "event", "SN-1", "--kind", "polish"],
+    ["calset", "create", "C1", "--property", "RON", "--all-referenced", "--validation", "duplex:half"],
+    ["model", "list", "--state", "sleeping"],
 ])
 def test_a_bad_option_is_refused_before_anything_is_stored(db, args):
     """Every option is checked before the transaction: a wrong one stores nothing, so the
