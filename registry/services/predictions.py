@@ -21,7 +21,7 @@ from ..lifecycle.states import DeploymentState, ModelState, is_terminal
 from ..storage.models import (Deployment, Instrument, ModelVersion, Prediction, RevalidationTrigger,
                               Sample, Spectrum)
 from ..spectra.record import content_sha256_rows
-from ..storage.spectra_store import existing_hashes, load_on_axis
+from ..storage.spectra_store import existing_hashes
 from ..storage.revalidation_store import due_status_of, open_triggers, policy_for
 from ..storage.types import utcnow
 from .context import Actor, audit, authorize

@@ -19,7 +19,7 @@ from ..lifecycle.permissions import Action
 from ..storage.models import (CalibrationMember, CalibrationSet, Grade, Instrument, ModelVersion,
                               Prediction, Property, QCResult, ReferenceMethod, Sample, Site,
                               Spectrum, User)
-from ..storage.spectra_store import load_on_axis
+from ..storage.spectra_store import axis_values, load_matrix, load_on_axis
 from ..storage.types import as_utc
 from .admin import get_grade, get_property
 from .context import Actor, authorize

@@ -7,7 +7,6 @@ q(0.95; n, ∞), which scipy.stats.studentized_range computes as a reference.
 
 from __future__ import annotations
 
-import math
 
 import numpy as np
 import pytest

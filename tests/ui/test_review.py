@@ -9,7 +9,6 @@ Guide to Multivariate Calibration and Classification, 2002), σ_R = R/2.77 (ISO 
 from __future__ import annotations
 
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 import pytest

@@ -61,7 +61,8 @@ with tab_users:
     if users is not FAILED:
         st.dataframe(pd.DataFrame([{
             "user": u["name"], "full name": u["full_name"], "roles": ", ".join(u["roles"]),
-            "status": "active" if u["active"] else "locked", "added (UTC)": when(u["created_at"])}
+            "status": "may sign in" if u["active"] else "locked",
+            "added (UTC)": when(u["created_at"])}
             for u in users]), hide_index=True, key="adm_users")
     if may(Action.USER_ADD) and users is not FAILED:
         with st.form("adm_user_add"):
@@ -85,7 +86,7 @@ with tab_users:
         with st.form("adm_user_lock"):
             st.markdown("**Lock or unlock an account** (a locked user cannot sign in; the "
                         "history keeps their name)")
-            status = {u["name"]: "active" if u["active"] else "locked" for u in users}
+            status = {u["name"]: "may sign in" if u["active"] else "locked" for u in users}
             who = st.selectbox("User", list(status), key="adm_lock_user",
                                format_func=lambda n: f"{n} ({status[n]})")
             c1, c2, _ = st.columns([1, 1, 3])
@@ -107,7 +108,8 @@ with tab_sites:
         st.dataframe(pd.DataFrame([{
             "serial": i["serial"], "site": i["site"],
             "range (cm⁻¹)": f"{i['range_cm1'][1]:g}–{i['range_cm1'][0]:g}",
-            "resolution (cm⁻¹)": i["resolution_cm1"], "status": "active" if i["active"] else "inactive"}
+            "resolution (cm⁻¹)": i["resolution_cm1"],
+            "status": "in service" if i["active"] else "out of service"}
             for i in cat["instruments"]], columns=["serial", "site", "range (cm⁻¹)",
                                                   "resolution (cm⁻¹)", "status"]),
             hide_index=True, key="adm_instruments")
@@ -168,7 +170,8 @@ with tab_methods:
         st.dataframe(pd.DataFrame([{
             "property": m["property"], "method": m["code"], "name": m["name"], "r": m["r"],
             "R": m["R"], "cost per test": m["cost"], "currency": m["currency"],
-            "turnaround (days)": m["turnaround_days"], "status": "active" if m["active"] else "inactive"}
+            "turnaround (days)": m["turnaround_days"],
+            "status": "in use" if m["active"] else "withdrawn"}
             for m in methods]), hide_index=True, key="adm_methods")
     if methods and methods is not FAILED and may(Action.METHOD_EDIT):
         keys = [(m["property"], m["code"]) for m in methods]

@@ -1,0 +1,68 @@
+"""audit action names: 'user_reactivate' (an admin unlocks a locked account)
+
+Revision ID: 0006
+Revises: 0005
+Create Date: 2027-02-08
+
+Alembic does not compare CHECK constraints, so the new member of the audit ``Action``
+enum needs this hand-written revision: it replaces ``ck_audit_event_action`` with the
+list 0004 wrote plus the new name (written out, as in 0004, so that this revision keeps
+its meaning when a later one adds an action). On SQLite the constraint changes by a
+batch rebuild of ``audit_event``, which drops its append-only triggers (revision 0002);
+they are dropped first and created again afterwards, exactly as 0002 wrote them.
+"""
+from contextlib import contextmanager
+from typing import Iterator, Sequence, Union
+
+from alembic import op
+
+revision: str = "0006"
+down_revision: Union[str, None] = "0005"
+branch_labels: Union[str, Sequence[str], None] = None
+depends_on: Union[str, Sequence[str], None] = None
+
+_ACTIONS_0004 = (
+    "user_add", "user_deactivate", "site_add", "instrument_add", "instrument_event", "grade_add",
+    "property_edit", "method_edit", "import_spectra", "import_references", "export_data",
+    "correct_reference", "resolve_suspect_reference", "selection_run", "calset_create",
+    "model_train", "model_validate", "model_submit", "model_approve", "model_reject",
+    "model_activate", "model_retire", "predict", "qc_add", "qc_clear_signal", "policy_edit",
+    "trigger_raise", "view", "audit_verify", "trace", "selection_close", "trigger_clear",
+    "catalog_seed")
+_ACTIONS = _ACTIONS_0004 + ("user_reactivate",)
+_NAME = "ck_audit_event_action"
+
+
+def upgrade() -> None:
+    _replace_check(_ACTIONS)
+
+
+def downgrade() -> None:
+    # The audit trail is append-only: a trail that already records a reactivation cannot
+    # go back to this list, and the engine refuses the narrower CHECK rather than lose it.
+    _replace_check(_ACTIONS_0004)
+
+
+def _replace_check(names: tuple[str, ...]) -> None:
+    listed = ", ".join(f"'{n}'" for n in names)
+    with _audit_guard_lifted():
+        with op.batch_alter_table("audit_event") as batch:
+            batch.drop_constraint(op.f(_NAME), type_="check")
+            batch.create_check_constraint(op.f(_NAME), f"action IN ({listed})")
+
+
+@contextmanager
+def _audit_guard_lifted() -> Iterator[None]:
+    """On SQLite, drop the append-only triggers around the rebuild of audit_event and
+    create them again afterwards (PostgreSQL alters the table in place)."""
+    sqlite = op.get_bind().dialect.name == "sqlite"
+    verbs = ("UPDATE", "DELETE")
+    if sqlite:
+        for verb in verbs:
+            op.execute(f"DROP TRIGGER IF EXISTS trg_audit_event_no_{verb.lower()}")
+    yield
+    if sqlite:
+        for verb in verbs:
+            op.execute(f"CREATE TRIGGER trg_audit_event_no_{verb.lower()} BEFORE {verb} ON "
+                       f"audit_event BEGIN SELECT RAISE(ABORT, 'audit_event is append-only: "
+                       f"{verb} refused'); END")
