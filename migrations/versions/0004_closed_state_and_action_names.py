@@ -13,10 +13,11 @@ On SQLite a constraint is added by rebuilding the table (batch mode). Rebuilding
 ``audit_event`` drops its append-only triggers (revision 0002), so they are
 dropped first and created again afterwards, exactly as 0002 wrote them.
 """
-from contextlib import contextmanager
-from typing import Iterator, Sequence, Union
+from typing import Sequence, Union
 
 from alembic import op
+
+from registry.storage import append_only
 
 revision: str = "0004"
 down_revision: Union[str, None] = "0003"
@@ -47,7 +48,7 @@ _CHECKS = {
 
 
 def upgrade() -> None:
-    with _audit_guard_lifted():
+    with append_only.lifted_for_sqlite_rebuild():
         for table, checks in _CHECKS.items():
             with op.batch_alter_table(table) as batch:
                 for column, names in checks:
@@ -57,25 +58,9 @@ def upgrade() -> None:
 
 
 def downgrade() -> None:
-    with _audit_guard_lifted():
+    with append_only.lifted_for_sqlite_rebuild():
         for table, checks in _CHECKS.items():
             with op.batch_alter_table(table) as batch:
                 for column, _ in checks:
                     batch.drop_constraint(op.f(f"ck_{table}_{column}"), type_="check")
 
-
-@contextmanager
-def _audit_guard_lifted() -> Iterator[None]:
-    """On SQLite, drop the append-only triggers around a rebuild of audit_event and create
-    them again afterwards (PostgreSQL alters the table in place and keeps its triggers)."""
-    sqlite = op.get_bind().dialect.name == "sqlite"
-    verbs = ("UPDATE", "DELETE")
-    if sqlite:
-        for verb in verbs:
-            op.execute(f"DROP TRIGGER IF EXISTS trg_audit_event_no_{verb.lower()}")
-    yield
-    if sqlite:
-        for verb in verbs:
-            op.execute(f"CREATE TRIGGER trg_audit_event_no_{verb.lower()} BEFORE {verb} ON "
-                       f"audit_event BEGIN SELECT RAISE(ABORT, 'audit_event is append-only: "
-                       f"{verb} refused'); END")

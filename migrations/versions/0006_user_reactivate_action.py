@@ -11,10 +11,11 @@ its meaning when a later one adds an action). On SQLite the constraint changes b
 batch rebuild of ``audit_event``, which drops its append-only triggers (revision 0002);
 they are dropped first and created again afterwards, exactly as 0002 wrote them.
 """
-from contextlib import contextmanager
-from typing import Iterator, Sequence, Union
+from typing import Sequence, Union
 
 from alembic import op
+
+from registry.storage import append_only
 
 revision: str = "0006"
 down_revision: Union[str, None] = "0005"
@@ -45,24 +46,8 @@ def downgrade() -> None:
 
 def _replace_check(names: tuple[str, ...]) -> None:
     listed = ", ".join(f"'{n}'" for n in names)
-    with _audit_guard_lifted():
+    with append_only.lifted_for_sqlite_rebuild():
         with op.batch_alter_table("audit_event") as batch:
             batch.drop_constraint(op.f(_NAME), type_="check")
             batch.create_check_constraint(op.f(_NAME), f"action IN ({listed})")
 
-
-@contextmanager
-def _audit_guard_lifted() -> Iterator[None]:
-    """On SQLite, drop the append-only triggers around the rebuild of audit_event and
-    create them again afterwards (PostgreSQL alters the table in place)."""
-    sqlite = op.get_bind().dialect.name == "sqlite"
-    verbs = ("UPDATE", "DELETE")
-    if sqlite:
-        for verb in verbs:
-            op.execute(f"DROP TRIGGER IF EXISTS trg_audit_event_no_{verb.lower()}")
-    yield
-    if sqlite:
-        for verb in verbs:
-            op.execute(f"CREATE TRIGGER trg_audit_event_no_{verb.lower()} BEFORE {verb} ON "
-                       f"audit_event BEGIN SELECT RAISE(ABORT, 'audit_event is append-only: "
-                       f"{verb} refused'); END")
