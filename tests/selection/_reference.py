@@ -23,7 +23,13 @@ def kennard_stone_1969(X, k, start="farthest-pair", already_selected=()):
     the first index (numpy argmax/argmin return the first occurrence).
     """
     X = np.asarray(X, dtype=np.float64)
-    D = squared_distances(X)
+    return max_min_picks(squared_distances(X), k, start=start, X=X,
+                         already_selected=already_selected)
+
+
+def max_min_picks(D, k, start="farthest-pair", X=None, already_selected=()):
+    """The Kennard–Stone loop on a full distance matrix ``D`` (any distance: SPXY's joint
+    x–y distance too); ``X`` is needed only by the centre starts."""
     chosen = list(already_selected)
     picks = []
     if not chosen:

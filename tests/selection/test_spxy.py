@@ -12,6 +12,8 @@ from registry.errors import InputError
 from registry.selection import kennard_stone
 from registry.selection.spxy import spxy
 
+from ._reference import max_min_picks
+
 
 def spxy_2005(X, y, k, already_selected=()):
     """Galvão et al. (2005) literally: d = d_x/max d_x + d_y/max d_y, then the KS loop."""
@@ -19,20 +21,7 @@ def spxy_2005(X, y, k, already_selected=()):
     Y = np.asarray(y, dtype=float).reshape(len(X), -1)
     dx, dy = cdist(X, X), cdist(Y, Y)
     D = dx / dx.max() + (dy / dy.max() if dy.max() > 0 else 0.0)
-    chosen = list(already_selected)
-    picks = []
-    if not chosen:
-        upper = np.where(np.triu(np.ones_like(D, dtype=bool), 1), D, -1.0)
-        i, j = np.unravel_index(np.argmax(upper), D.shape)
-        picks = [int(i), int(j)]
-        chosen += picks
-    while len(picks) < k:
-        nearest = D[:, chosen].min(axis=1)
-        nearest[chosen] = -1.0
-        best = int(np.argmax(nearest))
-        picks.append(best)
-        chosen.append(best)
-    return picks[:k]
+    return max_min_picks(D, k, already_selected=already_selected)
 
 
 # x = 0, 1, 3, 7 and y = 0, 4, 1, 2: max d_x = 7, max d_y = 4. Joint distances
