@@ -29,6 +29,11 @@ PROPERTIES: list[dict[str, Any]] = [
     dict(code="AROMATICS", name="Aromatics", unit="vol %", lower_limit=0, upper_limit=100, decimals=1),
     dict(code="BENZENE", name="Benzene", unit="vol %", lower_limit=0, upper_limit=10, decimals=2),
     dict(code="ETHANOL", name="Ethanol", unit="vol %", lower_limit=0, upper_limit=100, decimals=1),
+    dict(code="MTBE", name="Methyl tert-butyl ether", unit="vol %", lower_limit=0, upper_limit=30, decimals=1),
+    # computed, not measured: AKI = (RON + MON)/2 from the two engine results (ASTM D4814,
+    # the anti-knock index posted at the pump; from memory). Its "method" below is that rule.
+    dict(code="AKI", name="Anti-knock index (R+M)/2, computed from RON and MON", unit="",
+         lower_limit=40, upper_limit=120, decimals=1),
     dict(code="FAME", name="Fatty acid methyl esters", unit="vol %", lower_limit=0, upper_limit=100, decimals=1),
     dict(code="FREEZE", name="Freezing point", unit="°C", lower_limit=-80, upper_limit=0, decimals=1),
 ]
@@ -92,6 +97,19 @@ METHODS: list[dict[str, Any]] = [
          repeatability=_c(0.2), reproducibility=_c(0.6), cost=120, turnaround_days=2,
          source="r 0.2 and R 0.6 vol % near 10 vol % ethanol: approximate, from memory "
                 "(ASTM D4815 gives level-dependent precision)."),
+    dict(code="ASTM D4815", property="MTBE", name="Oxygenates by GC",
+         repeatability=_c(0.2), reproducibility=_c(0.6), cost=120, turnaround_days=2,
+         source="r 0.2 and R 0.6 vol % near 5-10 vol % MTBE: approximate, from memory "
+                "(ASTM D4815 gives level-dependent precision)."),
+    # Not a test of its own: the lab computes (R + M)/2 from its ASTM D2699 and D2700
+    # results (ASTM D4814, from memory). For a mean of two independent results the precision
+    # is √(r₁² + r₂²)/2 (propagation of independent errors): r = √(0.2² + 0.2²)/2 ≈ 0.14,
+    # R = √(0.7² + 0.9²)/2 ≈ 0.57. The cost is the two engine ratings.
+    dict(code="ASTM D4814", property="AKI", name="Anti-knock index (R+M)/2, computed",
+         repeatability=_c(0.14), reproducibility=_c(0.57), cost=500, turnaround_days=2,
+         source="computed, not measured: AKI = (RON + MON)/2 (ASTM D4814, from memory); "
+                "r 0.14 = √(0.2² + 0.2²)/2 and R 0.57 = √(0.7² + 0.9²)/2 from the ASTM "
+                "D2699 and D2700 figures above, errors of the two ratings independent."),
     dict(code="EN 14078", property="FAME", name="FAME in middle distillates, IR",
          repeatability=_c(0.1), reproducibility=_c(0.3), cost=60, turnaround_days=1,
          source="r 0.1 and R 0.3 vol % near 5-7 vol % FAME: approximate, from memory."),

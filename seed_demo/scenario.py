@@ -20,6 +20,13 @@ would hold after such a year:
   the refinery's premium production, outside the calibration space: its
   predictions are flagged and coverage drift makes the RON and MON models due
   (the density model, used only at the terminal, never sees it);
+* month 9: the lab puts four models of other families into service beside PLS
+  (:data:`FAMILY_MODELS`): benzene from its 674 cm⁻¹ band and ethanol with MTBE by
+  classical least squares on the terminal's analyzer, the anti-knock index
+  (RON + MON)/2 computed from the active octane models' results, and a look-up of the
+  most similar tested diesel samples for the distillation midpoint T50 at the
+  refinery; each is validated, approved by the reviewer, deployed, used every month
+  and traced by the auditor at the end;
 * month 12: the second analyzer's QC drifts and signals;
 * now: the density model is overdue under its 180-day policy.
 """
@@ -81,7 +88,9 @@ DIESEL_PROPERTIES = {"CN": "ASTM D613"}
 #: Where each model is used. The refinery lab (AR-IR-02) measures density directly on its
 #: density meter; the terminal (KB-IR-01) predicts it. Diesel is analysed at the refinery.
 DEPLOYED_ON = {"RON": ("KB-IR-01", "AR-IR-02"), "MON": ("KB-IR-01", "AR-IR-02"),
-               "DENSITY": ("KB-IR-01",), "CN": ("AR-IR-02",)}
+               "DENSITY": ("KB-IR-01",), "CN": ("AR-IR-02",),
+               "BENZENE": ("KB-IR-01",), "ETHANOL": ("KB-IR-01",), "AKI": ("KB-IR-01",),
+               "T50": ("AR-IR-02",)}
 #: The calibration campaign (months 1–2): premium samples scanned per analyzer and month, all
 #: tested for density; the first ENGINE_TESTED of each batch (a random subset: a batch comes
 #: in random order) also go to the knock engines. Diesel samples scanned per month at the
@@ -94,6 +103,63 @@ NEW_COMPONENT_BATCHES, NEW_COMPONENT_SHARE = 0.6, 0.12
 QC_MATERIAL = "CONTROL-PREM-A"  # a retained premium gasoline used as control material
 QC_VALUE, QC_SD = 95.3, 0.12  # its RON and the analyzers' day-to-day scatter on it (invented)
 GENERATION_2_MONTH = 8
+#: Who runs each reference test (the CSV's operator column); engine ratings otherwise.
+BENCHES = {"DENSITY": "density-meter", "BENZENE": "gc-bench", "ETHANOL": "gc-bench",
+           "MTBE": "gc-bench", "T50": "distillation-bench"}
+#: Concentrations by chromatography: an absent component is reported as zero.
+ABSENT_IS_ZERO = ("BENZENE", "ETHANOL", "MTBE")
+#: The other families' primary methods (registry.catalog).
+FAMILY_METHODS = {"BENZENE": "ASTM D5769", "ETHANOL": "ASTM D4815", "MTBE": "ASTM D4815",
+                  "T50": "ASTM D86"}
+
+
+@dataclass(frozen=True)
+class FamilyModel:
+    """One model of a family other than PLS in the story (month :data:`FAMILY_MONTH`)."""
+
+    prop: str
+    grade: str
+    family: str
+    options: dict
+    purpose: str
+    #: "duplex" (Duplex on PCA scores, a quarter held out) or "routine" (every fourth
+    #: tested sample in order of testing held out)
+    holdout: str = "duplex"
+
+
+#: When the other families go into service (after the second PLS generation, so the
+#: derived AKI starts from the octane models then current).
+FAMILY_MONTH = 9
+#: The lab's models beyond PLS. Band, CLS and look-up read one analyzer's spectra (the
+#: calibration samples were scanned on it): a band height or a K matrix does not carry
+#: over to another analyzer's line width. Options are those of registry.services.trainers.
+FAMILY_MODELS = (
+    # benzene's ring wag at 674 cm⁻¹ stands apart in gasoline (ASTM D6277 reads benzene
+    # from it, from memory): its height above a baseline through 668 and 680 cm⁻¹
+    FamilyModel("BENZENE", GASOLINE_GRADE, "band", {"band": [668, 680], "measure": "height"},
+                "benzene from its 674 cm⁻¹ band"),
+    # ethanol and MTBE overlap in the C–O region (ethanol 1048/1087, MTBE 1203/1085
+    # cm⁻¹); K estimated from the tested mixtures, a sloping baseline term for the
+    # hydrocarbons' weak absorbance there, a 99 % residual limit
+    FamilyModel("ETHANOL", GASOLINE_GRADE, "cls",
+                {"components": ["ETHANOL", "MTBE"], "baseline": "linear", "confidence": 0.99,
+                 "recipe": [{"step": "region", "keep": [[1000, 1250]]}]},
+                "ethanol with MTBE by classical least squares"),
+    FamilyModel("AKI", GASOLINE_GRADE, "derived", {"formula": "(RON + MON) / 2"},
+                "anti-knock index computed from the octane models' results"),
+    # the midpoint of the distillation looked up as the mean of the ten most similar
+    # tested samples (PCA scores of the preprocessed spectra, each direction scaled to
+    # unit variance). A look-up answers for samples like the tested ones and cannot
+    # extrapolate, so it is judged on routine samples (every fourth tested one), not on
+    # the edges of the space a Duplex split sends to validation
+    FamilyModel("T50", DIESEL_GRADE, "neighbours",
+                {"n_neighbors": 10, "space": "scores", "weights": "uniform",
+                 # in scaled-score units; the default, the largest nearest-neighbour
+                 # distance inside the set (about 1 here), leaves routine samples without
+                 # a value; 1.5 is the lab's own choice (invented)
+                 "distance_limit": 1.5},
+                "diesel T50 from the most similar tested samples", holdout="routine"),
+)
 
 
 @dataclass
@@ -108,6 +174,7 @@ class DemoReport:
     notes: list = field(default_factory=list)
     start: datetime | None = None
     new_component_samples: list = field(default_factory=list)
+    traces: dict = field(default_factory=dict)
 
 
 def _quiet(values: np.ndarray) -> bool:
@@ -134,6 +201,10 @@ class _Builder:
         self.seed = seed
         self.rng = np.random.default_rng(seed)
         self.meta_rng = np.random.default_rng(seed + 1)  # batch/tank labels; keeps self.rng's stream
+        # reference scatter of the tests for the other families (month 9): its own stream, so
+        # the rest of the story draws what it drew before that chapter was written
+        self.family_rng = np.random.default_rng([seed, 9])
+        self.reported: dict[tuple[str, str], float] = {}  # (sample id, code) -> reported value
         self.work = workdir
         self.start = (now - timedelta(days=int(MONTHS * 30.4))).replace(
             hour=8, minute=0, second=0, microsecond=0)
@@ -221,7 +292,8 @@ class _Builder:
         return ids
 
     def reference_results(self, month: float, ids: list[str], props: dict[str, str],
-                          lab: str = SITES[1][0]) -> None:
+                          lab: str = SITES[1][0], rng: np.random.Generator | None = None
+                          ) -> None:
         """Primary-method results from the refinery lab's engines and density meter.
 
         Invented scatter: the bench's intermediate precision (ISO 5725-3: one laboratory,
@@ -230,19 +302,26 @@ class _Builder:
         (ISO 5725-6; ASTM E177). Results scattered with the full σ_R would leave no model able
         to reach SEP ≤ σ_R, which a lab testing on its own bench does reach.
         """
+        rng = rng or self.rng
         lines = ["sample_id,property,method,value,unit,lab,tested_at,operator"]
         when = self.at(month, 29)
         for code, method in props.items():
             truth = np.array([self.true[i][code] for i in ids])
-            noisy = reference_noise(code, truth, self.rng)  # repeatability part, σ_r
+            noisy = reference_noise(code, truth, rng)  # repeatability part, σ_r
             extra = np.sqrt(np.maximum(reference_sigma(code, truth, between_labs=True) ** 2
                                        - reference_sigma(code, truth) ** 2, 0.0) / 2.0)
-            noisy = noisy + extra * self.rng.standard_normal(truth.shape)
+            noisy = noisy + extra * rng.standard_normal(truth.shape)
+            if code in ABSENT_IS_ZERO:
+                # a component the blend does not contain gives no chromatographic peak and
+                # is reported as 0; no result of a present one is below zero
+                noisy = np.where(truth > 0, np.maximum(noisy, 0.0), 0.0)
             unit = "g/mL" if code == "DENSITY" else ""
-            digits = 4 if code == "DENSITY" else 1
-            bench = "density-meter" if code == "DENSITY" else "engine-bench"
+            digits = 4 if code == "DENSITY" else 2 if code == "BENZENE" else 1
+            bench = BENCHES.get(code, "engine-bench")
             for sid, v in zip(ids, noisy):
-                lines.append(f"{sid},{code},{method},{v:.{digits}f},{unit},{lab},"
+                text = f"{v:.{digits}f}"
+                self.reported[(sid, code)] = float(text)
+                lines.append(f"{sid},{code},{method},{text},{unit},{lab},"
                              f"{when.strftime('%Y-%m-%dT%H:%MZ')},{bench}")
         path = self.work / f"ref-m{month:04.1f}-{len(ids)}-{'-'.join(props)}.csv"
         path.write_text("\n".join(lines) + "\n")
@@ -258,16 +337,21 @@ class _Builder:
         every newly tested sample (picked to widen the calibration) goes into calibration.
         """
         name = f"{prop}-{grade}-G{generation}"
-        mgr, author, reviewer = self.actors["imara"], self.actors["teodor"], self.actors["greta"]
+        mgr = self.actors["imara"]
         split = ({"validation": "duplex:0.25"} if generation == 1 else
                  {"validation_external_ids": self.act(self.at(month, 2), _validation_samples,
                                                       f"{prop}-{grade}-G1")})
         self.act(self.at(month, 2), calibration.create_calibration_set, mgr, name,
                  property_code=prop, grade_code=grade, all_referenced=True,
                  description=f"generation {generation} for {prop}", **split)
-        mv = self.act(self.at(month, 3), models.train_model_version, author, name,
-                      max_components=15, parent=parent)
-        label = mv.label
+        return self.release(month, name, prop, parent=parent, max_components=15)
+
+    def release(self, month: float, calset: str, prop: str, **train) -> str:
+        """Train on a frozen set (the analyst), validate and approve (the reviewer, who is
+        not the author), deploy (the lab manager) on the analyzers of :data:`DEPLOYED_ON`."""
+        mgr, author, reviewer = self.actors["imara"], self.actors["teodor"], self.actors["greta"]
+        label = self.act(self.at(month, 3), models.train_model_version, author, calset,
+                         **train).label
         rec = self.act(self.at(month, 4), models.validate_model, reviewer, label)
         if not rec.passed:
             self.report.notes.append(f"{label} failed validation: {'; '.join(rec.reasons)}")
@@ -282,6 +366,73 @@ class _Builder:
                      instrument=serial, password=self.passwords["imara"],
                      reason="deployment after approval")
         return label
+
+    def family_models(self, month: float, gasoline: list[str], engine: list[str],
+                      diesel: list[str], validation_of: str) -> dict[str, str]:
+        """The models beyond PLS (:data:`FAMILY_MODELS`): reference tests for their
+        properties, one calibration set each, then the same release as every version.
+
+        ``gasoline`` are the terminal's tested campaign samples, ``engine`` every
+        engine-rated sample (their AKI is computed from the reported RON and MON, as a
+        lab reports it), ``diesel`` the refinery's diesel campaign; the AKI set keeps
+        the validation samples of ``validation_of`` so the derived property is judged on
+        samples no octane model was trained on.
+        """
+        props = {"BENZENE", "ETHANOL", "MTBE"}
+        self.reference_results(month - 1, gasoline, {c: FAMILY_METHODS[c] for c in sorted(props)},
+                               rng=self.family_rng)
+        self.reference_results(month - 1, diesel, {"T50": FAMILY_METHODS["T50"]},
+                               rng=self.family_rng)
+        self.aki_results(month - 1, engine)
+        mgr, labels = self.actors["imara"], {}
+        tested = {"BENZENE": gasoline, "ETHANOL": gasoline, "T50": diesel}
+        for spec in FAMILY_MODELS:
+            name = f"{spec.prop}-{spec.grade}-{spec.family.upper()}1"
+            if spec.family == "derived":
+                split = {"validation_external_ids": self.act(self.at(month, 2),
+                                                             _validation_samples, validation_of)}
+            elif spec.holdout == "routine":
+                split = {"validation_external_ids": tested[spec.prop][3::4]}
+            else:
+                split = {"validation": "duplex:0.25"}
+            self.act(self.at(month, 2), calibration.create_calibration_set, mgr, name,
+                     property_code=spec.prop, grade_code=spec.grade, all_referenced=True,
+                     description=spec.purpose, **split)
+            labels[spec.prop] = self.release(month, name, spec.prop, family=spec.family,
+                                             options=spec.options)
+        return labels
+
+    def aki_results(self, month: float, ids: list[str]) -> None:
+        """AKI = (RON + MON)/2 of each engine-rated sample from its reported ratings (ASTM
+        D4814, from memory): computed by the lab, imported like any result."""
+        when = self.at(month, 29, hour=1)
+        lines = ["sample_id,property,method,value,unit,lab,tested_at,operator"]
+        for sid in ids:
+            ron, mon = self.reported.get((sid, "RON")), self.reported.get((sid, "MON"))
+            if ron is not None and mon is not None:
+                lines.append(f"{sid},AKI,ASTM D4814,{(ron + mon) / 2:.2f},,{SITES[1][0]},"
+                             f"{when.strftime('%Y-%m-%dT%H:%MZ')},computed")
+        path = self.work / f"ref-m{month:04.1f}-AKI.csv"
+        path.write_text("\n".join(lines) + "\n")
+        self.act(when + timedelta(hours=2), references.import_references, self.actors["teodor"],
+                 path)
+
+    def trace_families(self, labels: dict[str, str]) -> None:
+        """The auditor traces the latest result of each family's model (read-only)."""
+        from registry.services import audit as audit_service
+        from registry.storage.models import ModelVersion, Prediction
+        from sqlmodel import select
+
+        with session_scope(self.engine) as s:
+            for label in labels.values():
+                pid = s.exec(select(Prediction.id).join(
+                    ModelVersion, ModelVersion.id == Prediction.model_version_id)
+                    .where(ModelVersion.label == label)
+                    .order_by(Prediction.id.desc())).first()
+                if pid is not None:
+                    doc = audit_service.trace(s, self.actors["jonas"], prediction_id=pid)
+                    self.report.traces[label] = {"prediction_id": pid,
+                                                 "family": doc["model"]["family"]}
 
     def predict_month(self, month: float, ids_by_serial: dict[str, list[str]],
                       labels: dict[str, str]) -> None:
@@ -357,6 +508,8 @@ class _Builder:
         diesel_label = self.model_generation(2.5, "CN", DIESEL_GRADE, 1, None)
 
         pool: list[str] = []
+        diesel_labels: dict[str, str] = {}
+        diesel_pool = list(cal_d)
         for m in range(3, self.months + 1):
             self.say(f"month {m}: production, predictions and QC")
             season = "summer" if m < 6 or m > 12 else "winter"
@@ -368,12 +521,14 @@ class _Builder:
                     new_fraction=NEW_COMPONENT_BATCHES if refinery_new else 0.0)
             pool += batch["KB-IR-01"] + batch["AR-IR-02"]
             diesel_ids = self.spectra_batch(m, "AR-IR-02", "diesel", 18, tag="D")
+            diesel_pool += diesel_ids
             if m == 3:
                 self.qc_month(m)
             else:
                 self.qc_month(m, drift=1.2 if m >= 12 else 0.0)
             self.predict_month(m, batch, labels)
-            self.predict_month(m, {"AR-IR-02": diesel_ids}, {"CN": diesel_label})
+            diesel_labels["CN"] = diesel_label
+            self.predict_month(m, {"AR-IR-02": diesel_ids}, diesel_labels)
             if m == 7:
                 self.say("month 7: selection run, engine tests, second model generation")
                 run = self.act(self.at(7, 10), selection.run_selection, self.actors["imara"],
@@ -391,7 +546,18 @@ class _Builder:
                                                          2, labels[prop])
                 diesel_label = self.model_generation(GENERATION_2_MONTH, "CN", DIESEL_GRADE, 2,
                                                      diesel_label)
-        self.report.models = list(labels.values()) + [diesel_label]
+            if m == FAMILY_MONTH - 1:
+                self.say(f"month {FAMILY_MONTH}: band, CLS, derived and look-up models")
+                family = self.family_models(
+                    FAMILY_MONTH, [i for i in cal_g if i.startswith("KB")],
+                    [i for i in cal_g + pool if (i, "RON") in self.reported], diesel_pool,
+                    validation_of=f"RON-{GASOLINE_GRADE}-G1")
+                diesel_labels["T50"] = family.pop("T50")
+                labels.update(family)
+        self.report.models = list(labels.values()) + list(diesel_labels.values())
+        self.trace_families({**{p: labels[p] for p in ("BENZENE", "ETHANOL", "AKI")
+                                if p in labels}, **{p: diesel_labels[p] for p in ("T50",)
+                                                    if p in diesel_labels}})
         return self.report
 
 

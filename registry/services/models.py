@@ -63,10 +63,28 @@ def current_model(session: Session, prop: Property, grade: Grade | None) -> Mode
 
 def load_trained(mv: ModelVersion) -> TrainedModel:
     """A PLS version's arrays (its score space is what selection and the coverage views
-    use), after checking the artifact against its recorded hash."""
+    use), after checking the artifact against its recorded hash.
+
+    A version of another family is refused, never replaced by an older PLS version of
+    the property: a selection or coverage map drawn in a superseded model's space would
+    look current while describing a model no longer in use. The message names the
+    property, the family and what to do.
+    """
     if mv.family != ModelFamily.PLS:
-        raise InputError(f"model {mv.label} is a {mv.family} model; only PLS versions have a "
-                         "score space", field="--model")
+        from sqlalchemy.orm import object_session
+
+        session = object_session(mv)
+        prop = session.get(Property, mv.property_id) if session is not None else None
+        grade = (session.get(Grade, mv.grade_id)
+                 if session is not None and mv.grade_id is not None else None)
+        code = prop.code if prop is not None else "this property"
+        on = f" on {grade.code}" if grade is not None else ""
+        raise InputError(
+            f"the model of {code}{on} is {mv.label}, a {mv.family.value} model "
+            f"({DESCRIPTIONS[mv.family]}); selection and the coverage views work in a PLS "
+            f"model's score space. Train a PLS version of {code} (model train --family pls) "
+            f"and name it with --model, or select and map by another property with a PLS "
+            "model", field="--model")
     return TrainedModel.from_bytes(mv.artifact, mv.artifact_sha256)
 
 

@@ -56,7 +56,8 @@ OCTANE_INTERACTIONS = {
 
 #: Property codes per fuel family, in column order.
 PROPERTY_CODES = {
-    "gasoline": ("RON", "MON", "DENSITY", "VP", "T50", "AROMATICS", "BENZENE", "ETHANOL"),
+    "gasoline": ("RON", "MON", "DENSITY", "VP", "T50", "AROMATICS", "BENZENE", "ETHANOL",
+                 "MTBE"),
     "diesel": ("CN", "DENSITY", "T50", "AROMATICS", "FAME"),
 }
 
@@ -64,7 +65,7 @@ PROPERTY_CODES = {
 PROPERTY_UNITS = {
     "RON": "octane number", "MON": "octane number", "CN": "cetane number",
     "DENSITY": "g/mL", "VP": "kPa", "T50": "°C",
-    "AROMATICS": "vol %", "BENZENE": "vol %", "ETHANOL": "vol %", "FAME": "vol %",
+    "AROMATICS": "vol %", "BENZENE": "vol %", "ETHANOL": "vol %", "MTBE": "vol %", "FAME": "vol %",
 }
 
 _SUM_TOLERANCE = 1e-6
@@ -313,6 +314,7 @@ def blend_properties(composition: pd.DataFrame, family: str) -> pd.DataFrame:
         out["AROMATICS"] = 100.0 * (v @ arom)
         out["BENZENE"] = 100.0 * _fraction_of(v, names, "benzene")
         out["ETHANOL"] = 100.0 * _fraction_of(v, names, "ethanol")
+        out["MTBE"] = 100.0 * _fraction_of(v, names, "mtbe")
     else:
         out["CN"] = cetane_number(composition)
         out["DENSITY"] = density(composition)

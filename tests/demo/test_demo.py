@@ -72,12 +72,13 @@ def test_same_seed_same_bytes_and_chain_head(tmp_path):
 def test_story_counts(demo):
     engine, report = demo
     c = report.counts
-    assert c["spectra"] >= 2000 and c["model_versions"] == 8
+    assert c["spectra"] >= 2000 and c["model_versions"] == 12
     assert c["reference_results"] > 500 and c["predictions"] > 2000 and c["qc_results"] > 50
     assert c["selection_runs"] >= 1 and c["signatures"] > 0 and c["deployments"] > 0
     with session_scope(engine) as s:
         states = [m.state for m in s.exec(select(ModelVersion)).all()]
-    assert states.count("superseded") == 4 and states.count("active") == 4
+    # two PLS generations of four properties, and one version of each other family
+    assert states.count("superseded") == 4 and states.count("active") == 8
 
 
 def test_every_version_passes_the_default_acceptance_rule(demo):
@@ -91,7 +92,7 @@ def test_every_version_passes_the_default_acceptance_rule(demo):
         rows = s.exec(select(ModelVersion, ValidationRecord)
                       .join(ValidationRecord, ValidationRecord.model_version_id == ModelVersion.id)
                       ).all()
-    assert len(rows) == len({mv.id for mv, _ in rows}) == 8
+    assert len(rows) == len({mv.id for mv, _ in rows}) == 12
     for mv, rec in rows:
         print(f"{mv.label}: A={mv.n_components} n={rec.n} SEP/σ_R={rec.sep_over_sigma_r:.3f} "
               f"bias p={rec.bias_p:.3f}")
@@ -218,3 +219,58 @@ def test_postgresql_replays_the_same_history(tmp_path):
 
         dispose_engines()
         drop()
+
+
+def test_every_family_is_in_service_with_results_and_a_trace(demo):
+    """The registry holds a version of each of the five families, each active (approved by
+    someone other than its author), with stored predictions and a trace of one of them that
+    names the family; a look-up says it is not a model."""
+    from registry.chemometrics.family_names import ModelFamily
+    from registry.services.audit import trace
+    from registry.storage.models import Signature
+
+    engine, report = demo
+    with session_scope(engine) as s:
+        auditor = actor_of(s.exec(select(User).where(User.name == "jonas")).one())
+        active = s.exec(select(ModelVersion).where(ModelVersion.state == "active")).all()
+        by_family = {}
+        for mv in active:
+            by_family.setdefault(mv.family.value, []).append(mv)
+        assert set(by_family) == {f.value for f in ModelFamily}
+        for family, versions in by_family.items():
+            for mv in versions:
+                n = s.exec(select(Prediction.id).where(Prediction.model_version_id == mv.id)
+                           ).all()
+                assert len(n) > 50, (mv.label, len(n))
+                approvals = s.exec(select(Signature).where(
+                    Signature.entity_type == "model_version", Signature.entity_id == mv.id,
+                    Signature.meaning == "approved as reviewer")).all()
+                assert approvals and all(a.user_id != mv.author_id for a in approvals)
+                if family != "pls":
+                    assert mv.label in report.traces
+                    doc = trace(s, auditor, prediction_id=report.traces[mv.label]["prediction_id"])
+                    assert doc["model"]["family"] == family
+        lookup = by_family["neighbours"][0]
+        doc = trace(s, auditor, prediction_id=report.traces[lookup.label]["prediction_id"])
+        assert "not a model" in doc["model"]["description"]
+        found = doc["prediction"]["diagnostics"]
+        assert len(found["neighbour_distance"]) == len(found["neighbour_value"]) == 10
+        assert found["neighbour_range"] == pytest.approx(
+            max(found["neighbour_value"]) - min(found["neighbour_value"]))
+
+
+def test_model_list_json_names_every_family(demo):
+    import json
+
+    from typer.testing import CliRunner
+
+    from registry.cli import app
+
+    engine, _ = demo
+    env = {"SPECLEDGER_DATABASE_URL": str(engine.url), "SPECLEDGER_USER": "jonas",
+           "SPECLEDGER_PASSWORD": "demo-jonas-2026"}
+    res = CliRunner().invoke(app, ["model", "list", "--format", "json"], env=env)
+    assert res.exit_code == 0, res.output
+    families = {r["label"]: r["family"] for r in json.loads(res.stdout)}
+    assert set(families.values()) == {"pls", "band", "cls", "derived", "neighbours"}
+    assert families["AKI-PREM95-v1"] == "derived" and families["T50-B7-v1"] == "neighbours"

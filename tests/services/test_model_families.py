@@ -312,3 +312,24 @@ def test_cls_takes_k_from_pure_component_spectra_imported_as_samples(reg, tmp_pa
     with pytest.raises(InputError, match="ETHANOL"):
         train(engine, actors, "ETHANOL-A", ModelFamily.CLS,
               {"pure_spectra": {"AROMATICS": {"sample": "PURE-ETOH", "value": 100.0}}})
+
+
+def test_selection_and_coverage_refuse_a_property_whose_current_model_is_not_pls(reg):
+    """Selection and the coverage map work in a PLS score space: when the current model of
+    the property is a band calibration, both refuse with a message that names the
+    property, its family and what to do (no silent fall-back to an older space)."""
+    from registry.services import selection, views
+
+    engine, actors, _ = reg
+    label = train(engine, actors, "BENZENE-A", ModelFamily.BAND,
+                  SPECS[ModelFamily.BAND][1])
+    into_service(engine, actors, label)
+    with session_scope(engine) as s:
+        with pytest.raises(InputError) as err:
+            selection.run_selection(s, actors["lab_manager"], property_codes=["BENZENE"],
+                                    grade="PREM95", method="kennard-stone", n=5, store=False)
+    for needed in ("BENZENE", "PREM95", label, "band", "PLS", "--family pls"):
+        assert needed in str(err.value), needed
+    with session_scope(engine) as s:
+        with pytest.raises(InputError, match=r"BENZENE on PREM95 is .* a band model"):
+            views.coverage_map(s, actors["auditor"], "BENZENE", "PREM95")
