@@ -11,7 +11,15 @@ with :func:`load_fitted` and get a :class:`FittedModel`, which says
 * ``assess(X, inputs)`` — values (NaN where the family gives none) and one plain
   record per spectrum (check values, limits, ``y_pred``, ``flags``), the shape of
   :meth:`registry.chemometrics.diagnostics.DiagnosticsResult.records`;
-* ``description`` and ``summary()`` — what the trace and the pages say it is.
+* ``description`` and ``summary()`` — what the trace and the pages say it is;
+* ``evidence()`` — the family's own calibration evidence for the reviewer (band: the
+  calibration line; CLS: the component spectra; derived: the formula and its inputs'
+  SEPs; look-up: the rule and its limit; PLS: nothing beyond the cross-validation
+  record, ``cross_validation``), plain JSON and arrays;
+* ``explain(X, inputs)`` — the same for one spectrum (band: the spectrum around the
+  band with its baseline; CLS: measured, fitted and residual spectra; derived: each
+  input's share of the uncertainty; look-up: the neighbours; PLS: its check record).
+  A ``sample_ids`` entry lists the calibration samples it refers to (registry ids).
 
 PLS artifacts are :class:`~registry.chemometrics.artifact.TrainedModel`; the other
 families are :mod:`registry.chemometrics.families` estimators packed with
@@ -78,6 +86,20 @@ class FittedModel:
         """Family settings and fitted figures as plain JSON (for trace and pages)."""
         return {}
 
+    #: The stored cross-validation record (PLS), else None.
+    cross_validation = None
+
+    def evidence(self) -> dict[str, Any]:
+        """The family's calibration evidence (see the module docstring)."""
+        return {}
+
+    def explain(self, X_raw: np.ndarray, inputs: Mapping[str, np.ndarray] | None = None
+                ) -> dict[str, Any]:
+        """The family's evidence for the first spectrum of ``X_raw`` (by default its check
+        record)."""
+        first = {k: np.asarray(v)[:1] for k, v in (inputs or {}).items()} if inputs else inputs
+        return self.assess(_raw(X_raw, self.axis.size)[:1], first).records[0]
+
     def to_bytes(self) -> bytes:
         raise NotImplementedError
 
@@ -113,6 +135,10 @@ class PLSModel(FittedModel):
 
     def summary(self) -> dict[str, Any]:
         return {"n_components": self.trained.n_components, "recipe": self.trained.recipe}
+
+    @property
+    def cross_validation(self):
+        return self.trained.cv
 
     def to_bytes(self) -> bytes:
         return self.trained.to_bytes()
@@ -164,6 +190,25 @@ class SpectralFamilyModel(FittedModel):
                 **{k: v for k, v in self.metadata.items() if k in ("outputs", "output_index",
                                                                    "pure_spectra")}}
 
+    def evidence(self) -> dict[str, Any]:
+        return {"axis": self.preprocessor.axis_out_, **self.estimator.evidence(),
+                **self._names()}
+
+    def explain(self, X_raw, inputs=None) -> dict[str, Any]:
+        X = self.preprocessor.transform(_raw(X_raw, self.axis.size)[:1])
+        out = {"axis": self.preprocessor.axis_out_, **self.estimator.explain(X), **self._names()}
+        rows = self.metadata.get("calibration_sample_ids")
+        if rows is not None and "neighbour_index" in out:
+            out["sample_ids"] = [int(rows[i]) for i in out["neighbour_index"]]
+        return out
+
+    def _names(self) -> dict[str, Any]:
+        """Output names of a multi-output estimator (CLS components) and the reported one."""
+        names = self.metadata.get("outputs")
+        if not names:
+            return {}
+        return {"outputs": list(names), "output_index": int(self.metadata.get("output_index", 0))}
+
     def to_bytes(self) -> bytes:
         extra = {"axis": self.axis}
         extra.update({f"pre/{k}": v for k, v in self.preprocessor.state_arrays().items()})
@@ -187,11 +232,14 @@ class DerivedModel(FittedModel):
         self.metadata = dict(metadata or {})
         self.inputs = tuple(estimator.inputs_)
 
-    def assess(self, X_raw, inputs=None) -> Assessment:
+    def _needed(self, inputs):
         if inputs is None:
             raise InputError(f"a derived property needs the results of {', '.join(self.inputs)}",
                              field="inputs")
-        checks = self.estimator.check(inputs)
+        return inputs
+
+    def assess(self, X_raw, inputs=None) -> Assessment:
+        checks = self.estimator.check(self._needed(inputs))
         return Assessment(np.asarray(checks.y_pred, dtype=np.float64), checks.records())
 
     def summary(self) -> dict[str, Any]:
@@ -199,6 +247,13 @@ class DerivedModel(FittedModel):
                 "input_sep": [None if not np.isfinite(v) else float(v)
                               for v in self.estimator.input_sep_],
                 "input_models": self.metadata.get("input_models", {})}
+
+    def evidence(self) -> dict[str, Any]:
+        return {**self.estimator.evidence(),
+                "input_models": self.metadata.get("input_models", {})}
+
+    def explain(self, X_raw, inputs=None) -> dict[str, Any]:
+        return self.estimator.explain(self._needed(inputs))
 
     def to_bytes(self) -> bytes:
         return family_to_bytes(self.estimator, self.metadata, {"axis": self.axis})

@@ -241,12 +241,23 @@ def assess_spectra(session: Session, mv: ModelVersion, spectrum_ids: list[int], 
     the same spectra: from ``inputs`` (code -> (version, values)) when the caller has
     them, else from :func:`input_model`'s version, assessed the same way.
     """
-    if depth > 8:
-        raise InputError(f"model {mv.label}: inputs nest too deep (a formula cycle?)",
-                         field="formula")
     if model is None:
         model = load_fitted(mv.artifact, mv.artifact_sha256)
     X = load_on_axis(session, spectrum_ids, model.axis)
+    values, used = input_values(session, mv, model, spectrum_ids, inputs=inputs, depth=depth)
+    out = model.assess(X, values if model.inputs else None)
+    return SpectraAssessment(model, out.y, out.records, used)
+
+
+def input_values(session: Session, mv: ModelVersion, model: FittedModel,
+                 spectrum_ids: list[int], *,
+                 inputs: dict[str, tuple[ModelVersion, np.ndarray]] | None = None,
+                 depth: int = 0) -> tuple[dict[str, np.ndarray], dict[str, dict]]:
+    """The results of ``model.inputs`` for the spectra (code -> values) and the version
+    that gave each (code -> label, id, artifact hash); empty for a model without inputs."""
+    if depth > 8:
+        raise InputError(f"model {mv.label}: inputs nest too deep (a formula cycle?)",
+                         field="formula")
     given = dict(inputs or {})
     values, used = {}, {}
     for code in model.inputs:
@@ -258,8 +269,7 @@ def assess_spectra(session: Session, mv: ModelVersion, spectrum_ids: list[int], 
         values[code] = v
         used[code] = {"model": imv.label, "model_version_id": imv.id,
                       "artifact_sha256": imv.artifact_sha256}
-    out = model.assess(X, values if model.inputs else None)
-    return SpectraAssessment(model, out.y, out.records, used)
+    return values, used
 
 
 def _reproducibility_at(session: Session, prop: Property, level: float) -> float | None:

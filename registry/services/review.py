@@ -1,10 +1,15 @@
 """What a reviewer reads before validating or approving a model version.
 
-Read-only: the review queue, one version's evidence (cross-validated and
-validation predictions against reference, residuals, the RMSECV curve, the
-statistics beside the reference method's precision), two versions compared, and
-whether the signed-in user may approve a version (with the reason in people's
-names when not). Every function checks ``view``; nothing is written or audited.
+Read-only: the review queue, one version's evidence (validation predictions
+against reference, residuals, the statistics beside the reference method's
+precision and the verdict, for every family; the cross-validated predictions and
+RMSECV curve a PLS version stores; each family's own evidence from its fitted
+artifact), one spectrum's evidence (the family's breakdown of one result), two
+versions compared, and whether the signed-in user may approve a version (with the
+reason in people's names when not). Every function checks ``view``; nothing is
+written or audited. Family evidence comes from the fitted interface
+(:meth:`registry.chemometrics.fitted.FittedModel.evidence` and ``explain``): no
+code here asks which family a version is.
 """
 
 from __future__ import annotations
@@ -17,21 +22,22 @@ from sqlmodel import Session, select
 
 from ..catalog import precision_at
 from ..chemometrics.validation import precision_summary
-from ..errors import PermissionDenied
+from ..errors import NotFoundError, PermissionDenied, StateError
 from ..lifecycle.permissions import LIFECYCLE_PERMISSIONS, Action, is_allowed
 from ..lifecycle.states import (LifecycleAction, ModelState, allowed_actions,
                                 check_separation_of_duties)
 from ..precision import sd_from_limit
-from ..spectra.axes import on_axis
+from ..chemometrics.fitted import FittedModel, load_fitted
 from ..storage.lookups import get_model
 from ..storage.models import (CalibrationSet, Grade, ModelStateChange,
-                              ModelVersion, Property, ReferenceMethod, Sample, Spectrum, User,
-                              ValidationRecord)
-from ..storage.spectra_store import axis_values
+                              ModelVersion, Prediction, Property, ReferenceMethod, Sample,
+                              Spectrum, User, ValidationRecord)
+from ..storage.spectra_store import load_on_axis
 from ..storage.types import as_utc
-from .calibration import calibration_data, members_of
+from .calibration import members_of
 from .context import Actor, authorize
-from .models import load_trained
+from .lifecycle import latest_passing_record
+from .models import assess_spectra, input_model, input_values, sample_means
 
 #: States in which a version waits for a reviewer: validation (draft) or approval (in review).
 WAITING = {ModelState.DRAFT: "validation", ModelState.IN_REVIEW: "approval"}
@@ -126,11 +132,12 @@ def _method_precision(session: Session, prop_id: int, level: float | None) -> di
             "sigma_R": sd_from_limit(R) if R else None}
 
 
-def _cross_validated(session: Session, mv: ModelVersion, trained, cs: CalibrationSet) -> dict | None:
+def _cross_validated(session: Session, mv: ModelVersion, model: FittedModel,
+                     cs: CalibrationSet) -> dict | None:
     """Cross-validated ŷ at the chosen size, one per calibration spectrum, as stored at
-    training (the artifact keeps every fold's predictions); None when the artifact has no
-    CV record or its rows no longer match the frozen set."""
-    cv = trained.cv
+    training (a PLS artifact keeps every fold's predictions); None when the family stores
+    no cross-validation or its rows no longer match the frozen set."""
+    cv = model.cross_validation
     if cv is None:
         return None
     y, groups, members = _calibration_rows(session, cs)
@@ -156,23 +163,86 @@ def _calibration_rows(session: Session, cs: CalibrationSet):
     return np.asarray(y, dtype=np.float64), np.asarray(groups), members
 
 
-def _validation_set(session: Session, trained, cs: CalibrationSet) -> dict | None:
-    """The validation members of the version's own set predicted now (replicates
-    averaged per sample, as :func:`registry.services.models.validate_model` does)."""
-    if not members_of(session, cs, "val"):
+def _validation_set(session: Session, mv: ModelVersion, model: FittedModel,
+                    cs: CalibrationSet) -> dict | None:
+    """The validation members of the version's own set predicted now by the version's
+    family (replicates averaged per sample, as
+    :func:`registry.services.models.validate_model` does; NaN where the family gives no
+    value)."""
+    members = members_of(session, cs, "val")
+    if not members:
         return None
-    X, _, groups, axis_row, members = calibration_data(session, cs, "val")
-    X = on_axis(X, axis_values(axis_row), trained.axis)
-    y_spec, _ = trained.predict(X)
-    order = list(dict.fromkeys(groups.tolist()))
+    spectrum_ids = [int(sid) for m in members for sid in m.spectrum_ids]
+    groups = np.array([m.sample_id for m in members for _ in m.spectrum_ids])
+    y_spec = assess_spectra(session, mv, spectrum_ids, model=model).y
+    order, predicted = sample_means(y_spec, groups)
     ref = {m.sample_id: m.reference_value for m in members}
     first = {m.sample_id: int(m.spectrum_ids[0]) for m in members}
     acquired = _first_acquired(session, list(first.values()))
     names = _sample_names(session, order)
-    return {"sample": [names[g] for g in order],
+    return {"sample": [names[g] for g in order], "spectrum_id": [first[g] for g in order],
             "acquired_at": [acquired[first[g]] for g in order],
             "reference": np.array([ref[g] for g in order], dtype=np.float64),
-            "predicted": np.array([y_spec[groups == g].mean() for g in order])}
+            "predicted": predicted}
+
+
+def _input_versions(session: Session, mv: ModelVersion, model: FittedModel,
+                    trained_with: dict[str, Any]) -> list[dict[str, Any]]:
+    """Each input property of a version that combines other results: the version its
+    results come from now, that version's SEP (latest passing validation), and the
+    version and SEP recorded at training (which the propagated uncertainty uses)."""
+    out = []
+    for code in model.inputs:
+        was = trained_with.get(code) or {}
+        try:
+            now = input_model(session, mv, code)
+        except StateError:  # no version of the input in use: say so, the rest still shows
+            now = None
+        rec = latest_passing_record(session, now) if now is not None else None
+        out.append({"code": code, "current": now.label if now else None,
+                    "current_family": now.family if now else None,
+                    "current_state": now.state if now else None,
+                    "current_sep": rec.sep if rec else None,
+                    "trained_with": was.get("label"), "sep_at_training": was.get("sep"),
+                    "changed": now is None or was.get("label") != now.label})
+    return out
+
+
+#: Recent predictions offered for a version's per-spectrum evidence.
+RECENT_PREDICTIONS = 20
+
+
+def _evidence_spectra(session: Session, mv: ModelVersion, cs: CalibrationSet,
+                      val: dict | None) -> list[dict[str, Any]]:
+    """Spectra whose family evidence a reviewer may open: a typical calibration sample
+    (its reference value nearest the calibration median), the validation samples and the
+    version's recent predictions."""
+    out = []
+    cal = members_of(session, cs, "cal")
+    if cal:
+        refs = np.array([m.reference_value for m in cal], dtype=np.float64)
+        typical = cal[int(np.argmin(np.abs(refs - np.median(refs))))]
+        name = _sample_names(session, [typical.sample_id])[typical.sample_id]
+        out.append({"kind": "calibration", "spectrum_id": int(typical.spectrum_ids[0]),
+                    "sample": name, "reference": typical.reference_value,
+                    "label": f"typical calibration sample {name} (reference "
+                             f"{typical.reference_value:g}, nearest the median)"})
+    if val is not None:
+        out += [{"kind": "validation", "spectrum_id": sid, "sample": name, "reference": float(r),
+                 "label": f"validation sample {name} (reference {r:g})"}
+                for sid, name, r in zip(val["spectrum_id"], val["sample"], val["reference"])]
+    preds = session.exec(select(Prediction).where(Prediction.model_version_id == mv.id)
+                         .order_by(Prediction.id.desc()).limit(RECENT_PREDICTIONS)).all()
+    if preds:
+        sample_of = dict(session.exec(select(Spectrum.id, Spectrum.sample_id).where(
+            Spectrum.id.in_([p.spectrum_id for p in preds]))).all())
+        names = _sample_names(session, sample_of.values())
+        out += [{"kind": "prediction", "spectrum_id": p.spectrum_id, "prediction_id": p.id,
+                 "sample": names[sample_of[p.spectrum_id]], "reference": None,
+                 "label": f"prediction {p.id} of {names[sample_of[p.spectrum_id]]} "
+                          f"({'no value' if p.value is None else f'{p.value:g}'})"}
+                for p in preds]
+    return out
 
 
 def _warnings(session: Session, mv: ModelVersion) -> list[str]:
@@ -198,22 +268,29 @@ def model_evidence(session: Session, actor: Actor, label: str) -> dict[str, Any]
     Returns
     -------
     dict
-        ``label, property, unit, family, components, state, author``;
-        ``cv_curve`` (RMSECV per component count, the chosen size, the rule);
+        ``label, property, unit, family, description, components, state, author``;
+        ``cv_curve`` (RMSECV per component count, the chosen size, the rule; empty
+        for a family without cross-validation);
         ``cross_validation`` (per calibration spectrum: sample, acquired_at,
         reference, predicted at the chosen size, fold; or None);
-        ``validation_set`` (per validation sample, predicted now; or None);
+        ``validation_set`` (per validation sample, predicted now by any family; or None);
         ``precision`` (the reference method's r, R, σ_R at the mean reference level);
         ``latest_validation`` (its statistics, rule and verdict; or None);
+        ``family_evidence`` (the fitted model's own evidence, see
+        :meth:`~registry.chemometrics.fitted.FittedModel.evidence`);
+        ``inputs`` (a version combining other results: each input's current version
+        and SEP beside those recorded at training; else empty);
+        ``spectra`` (spectra whose evidence :func:`spectrum_evidence` explains);
         ``warnings`` (shared artifact hash, reused calibration set).
     """
     authorize(actor, Action.VIEW)
     mv = get_model(session, label)
     prop = session.get(Property, mv.property_id)
     cs = session.get(CalibrationSet, mv.calibration_set_id)
-    trained = load_trained(mv)
-    cv = _cross_validated(session, mv, trained, cs)
-    val = _validation_set(session, trained, cs)
+    model = load_fitted(mv.artifact, mv.artifact_sha256)
+    cv = _cross_validated(session, mv, model, cs)
+    val = _validation_set(session, mv, model, cs)
+    family = model.evidence()
     rec = session.exec(select(ValidationRecord).where(ValidationRecord.model_version_id == mv.id)
                        .order_by(ValidationRecord.id.desc())).first()
     names = _names(session)
@@ -228,14 +305,43 @@ def model_evidence(session: Session, actor: Actor, label: str) -> dict[str, Any]
                   **precision_summary(rec.statistics, rec.criteria)}
     curve = mv.cv or {}
     return {"label": mv.label, "property": prop.code, "unit": prop.unit, "family": mv.family,
-            "components": mv.n_components, "state": mv.state,
+            "description": model.description, "components": mv.n_components, "state": mv.state,
             "author": names.get(mv.author_id),
             "cv_curve": {"rmsecv": list(curve.get("rmsecv") or []), "chosen": mv.n_components,
                          "rule": curve.get("selection_rule"), "method": curve.get("method"),
                          "n_folds": curve.get("n_folds")},
             "cross_validation": cv, "validation_set": val,
             "precision": _method_precision(session, mv.property_id, level),
-            "latest_validation": latest, "warnings": _warnings(session, mv)}
+            "latest_validation": latest, "family_evidence": family,
+            "inputs": _input_versions(session, mv, model, family.get("input_models") or {}),
+            "spectra": _evidence_spectra(session, mv, cs, val),
+            "warnings": _warnings(session, mv)}
+
+
+def spectrum_evidence(session: Session, actor: Actor, label: str,
+                      spectrum_id: int) -> dict[str, Any]:
+    """One spectrum's result by ``label`` with the family's own breakdown of it
+    (:meth:`~registry.chemometrics.fitted.FittedModel.explain`): the band and its
+    baseline, the CLS fit and residual, the inputs' shares of a derived uncertainty,
+    or the neighbours a look-up took its value from (with their sample names).
+
+    ``inputs_used`` names the version that gave each input result (derived only).
+    """
+    authorize(actor, Action.VIEW)
+    mv = get_model(session, label)
+    spectrum = session.get(Spectrum, int(spectrum_id))
+    if spectrum is None:
+        raise NotFoundError(f"no spectrum with id {spectrum_id}")
+    model = load_fitted(mv.artifact, mv.artifact_sha256)
+    X = load_on_axis(session, [spectrum.id], model.axis)
+    values, used = input_values(session, mv, model, [spectrum.id])
+    out = model.explain(X, values if model.inputs else None)
+    if out.get("sample_ids"):
+        names = _sample_names(session, out["sample_ids"])
+        out["samples"] = [names[i] for i in out["sample_ids"]]
+    sample = session.get(Sample, spectrum.sample_id)
+    return {**out, "label": mv.label, "family": mv.family, "spectrum_id": spectrum.id,
+            "sample": sample.external_id, "inputs_used": used}
 
 
 # --------------------------------------------------------------------------- compare

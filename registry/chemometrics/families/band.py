@@ -290,6 +290,42 @@ class BandCalibration:
                     "saturation_limit": float(self.saturation_limit)},
             flags=flags, flag_order=FLAGS)
 
+    # ----------------------------------------------------------- evidence
+    def evidence(self) -> dict[str, Any]:
+        """The calibration line (band value against reference) and its fit, for review."""
+        band, anchors, _ = self._check_params()
+        return {"band": list(band), "anchors": list(anchors), "measure": self.measure,
+                "degree": int(self.degree), "coefficients": self.coefficients_.tolist(),
+                "coefficient_se": self.coefficient_se_.tolist(),
+                "calibration_values": self.calibration_values_.copy(),
+                "calibration_y": self.calibration_y_.copy(),
+                "value_min": self.value_min_, "value_max": self.value_max_,
+                "statistics": dict(self.statistics_), "n_samples": self.n_samples_}
+
+    def explain(self, x) -> dict[str, Any]:
+        """One spectrum around the band: absorbance, anchors, baseline and band value.
+
+        The window runs from the lowest to the highest of the band limits and anchors,
+        widened by half that span on each side, so the band is seen against its
+        surroundings. ``baseline`` is the straight line through the two anchor
+        absorbances evaluated on the window's axis points.
+        """
+        X = self._spectra(x, None)[:1]
+        win = self._window(self.axis_)
+        values, anchor_abs, peak = win.measure(X, self.measure)
+        lo = min(win.edges[0], win.anchors[0])
+        hi = max(win.edges[1], win.anchors[1])
+        margin = (hi - lo) / 2.0
+        keep = (self.axis_ >= lo - margin) & (self.axis_ <= hi + margin)
+        nu = self.axis_[keep]
+        slope = (anchor_abs[0, 1] - anchor_abs[0, 0]) / (win.anchors[1] - win.anchors[0])
+        return {"axis": nu, "absorbance": X[0, keep],
+               "baseline": anchor_abs[0, 0] + slope * (nu - win.anchors[0]),
+               "anchors": win.anchors.tolist(), "anchor_absorbance": anchor_abs[0].tolist(),
+               "band": win.edges.tolist(), "measure": self.measure,
+               "band_value": float(values[0]), "band_max_absorbance": float(peak[0]),
+               "y_pred": float(self.predict_values(values)[0])}
+
     # ----------------------------------------------------------- plain state
     _ARRAYS = ("axis", "coefficients", "coefficient_cov", "coefficient_se",
                "calibration_values", "calibration_y", "anchor_min", "anchor_max")

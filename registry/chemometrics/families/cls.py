@@ -285,6 +285,34 @@ class ClassicalLeastSquares:
             flags={"residual": q > self.q_limit_, "condition": cond > float(self.condition_limit)},
             flag_order=FLAGS)
 
+    # ----------------------------------------------------------- evidence
+    def evidence(self) -> dict[str, Any]:
+        """The component spectra (rows of K) and the residual and condition limits."""
+        return {"K": self.K_.copy(), "condition_number": self.condition_number_,
+                "condition_limit": float(self.condition_limit), "q_limit": self.q_limit_,
+                "calibration_q": self.calibration_q_.copy(), "confidence": float(self.confidence),
+                "baseline": self.baseline, "non_negative": bool(self.non_negative),
+                "k_source": "estimated" if self.pure_spectra is None else "pure_spectra",
+                "n_samples": self.n_samples_}
+
+    def explain(self, x) -> dict[str, Any]:
+        """One spectrum: measured, fitted (ĉK + b̂G) and residual, with the limits.
+
+        The residual of the projected fit is the residual of the fit with the
+        baseline term (Frisch–Waugh–Lovell), so the fitted spectrum is x − residual.
+        """
+        X = self._spectra(x)[:1]
+        C, E = self._solve(X)
+        q = float(E[0] @ E[0])
+        return {"measured": X[0], "fitted": X[0] - E[0], "residual": E[0],
+                "concentrations": C[0].tolist(),
+                "baseline_coefficients": self.baseline_coefficients(X)[0].tolist(),
+                "q": q, "q_limit": self.q_limit_, "condition_number": self.condition_number_,
+                "condition_limit": float(self.condition_limit),
+                "flags": [name for name, bad in (
+                    ("residual", q > self.q_limit_),
+                    ("condition", self.condition_number_ > float(self.condition_limit))) if bad]}
+
     # ----------------------------------------------------------- plain state
     _ARRAYS = ("K", "baseline_basis", "calibration_q")
 

@@ -134,6 +134,30 @@ class DerivedProperty:
         return FamilyChecks(y_pred=value, values={"uncertainty": u}, limits={},
                             flags={"undefined": np.isnan(value)}, flag_order=FLAGS)
 
+    # ----------------------------------------------------------- evidence
+    def evidence(self) -> dict[str, Any]:
+        """The formula, its inputs and the SEPs the uncertainty is propagated from."""
+        return {"formula": self.formula, "inputs": list(self.inputs_),
+                "input_sep": [None if not np.isfinite(v) else float(v) for v in self.input_sep_]}
+
+    def explain(self, inputs) -> dict[str, Any]:
+        """One sample: each input's value, ∂f/∂x, SEP and share (∂f/∂x·SEP)² of u(f)²."""
+        env = {c: v[:1] for c, v in self._inputs(inputs).items()}
+        value, u = self.predict_with_uncertainty(env)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            _, grad = evaluate(self.tree_, env)
+        rows = []
+        for j, code in enumerate(self.inputs_):
+            d = float(np.broadcast_to(grad.get(code, 0.0), (1,))[0])
+            sep = float(self.input_sep_[j])
+            rows.append({"code": code, "value": float(env[code][0]), "derivative": d,
+                         "sep": sep if np.isfinite(sep) else None,
+                         "contribution": (d * sep) ** 2 if np.isfinite(d * sep) else None})
+        ok = np.isfinite(value[0])
+        return {"formula": self.formula, "inputs": rows,
+                "y_pred": float(value[0]) if ok else None,
+                "uncertainty": float(u[0]) if np.isfinite(u[0]) else None}
+
     # ----------------------------------------------------------- plain state
     def state_arrays(self) -> dict[str, np.ndarray]:
         return {"input_sep": np.ascontiguousarray(self.input_sep_)}

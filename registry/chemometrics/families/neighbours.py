@@ -213,6 +213,28 @@ class NeighbourLookup:
             limits={"distance_limit": self.distance_limit_},
             flags={"nearest_neighbour": beyond}, flag_order=FLAGS)
 
+    def evidence(self) -> dict[str, Any]:
+        """What is looked up: the rule, the space, the limit and the tested values."""
+        return {"n_neighbors": int(self.n_neighbors), "space": self.space,
+                "weights": self.weights, "distance_limit": self.distance_limit_,
+                "distance_limit_given": self.distance_limit is not None,
+                "n_components": None if self.pca_ is None else int(self.pca_.n_components_),
+                "n_samples": self.n_samples_, "calibration_y": self.y_.copy()}
+
+    def explain(self, x) -> dict[str, Any]:
+        """One spectrum's neighbours (calibration rows, distances, reference values), their
+        spread, the limit and the looked-up value (None beyond the limit)."""
+        checks = self.check(self._spectra(x)[:1])
+        rec = checks.records()[0]
+        values = np.asarray(rec["neighbour_value"], dtype=np.float64)
+        return {"neighbour_index": rec["neighbour_index"],
+                "neighbour_distance": rec["neighbour_distance"],
+                "neighbour_value": rec["neighbour_value"],
+                "spread": rec["neighbour_range"],
+                "sd": float(values.std(ddof=1)) if values.size > 1 else None,
+                "distance_limit": rec["distance_limit"], "y_pred": rec["y_pred"],
+                "flags": rec["flags"], "weights": self.weights}
+
     def predict(self, X) -> np.ndarray:
         """Looked-up values; NaN where the nearest neighbour is beyond the limit."""
         return self.check(X).y_pred
