@@ -23,7 +23,8 @@ from pathlib import Path
 import numpy as np
 
 from registry.chemometrics.family_names import ModelFamily
-from registry.services import admin, calibration, intake, lifecycle, models, references
+from registry.services import (admin, calibration, intake, lifecycle, models, predictions,
+                               references)
 from registry.storage.engine import make_engine, session_scope, upgrade
 from registry.storage.models import Sample
 from seed_demo.scenario import ANALYZERS
@@ -56,7 +57,7 @@ OPTIONS = {
                                        "weights": "uniform", "distance_limit": 1.5}),
     ModelFamily.DERIVED: ("AKI-A", {"formula": "(RON + MON) / 2"}),
 }
-PLS_COMPONENTS = 8
+PLS_COMPONENTS = 8  # octane PLS models (A ≤ 10 by the size rule)
 
 
 @dataclass
@@ -148,3 +149,25 @@ def into_service(engine, actors, label) -> None:
     with session_scope(engine) as s:
         lifecycle.activate_model(s, actors["lab_manager"], label, instrument="IR-100",
                                  password=PASSWORD, reason="into service")
+
+
+def release_every_family(engine, actors) -> dict[ModelFamily, str]:
+    """One version of each family in service (RON and MON by PLS feed the derived AKI),
+    each used for a few predictions; labels by family (PLS: the RON version)."""
+    labels = {}
+    for code in ("RON", "MON"):
+        label = train(engine, actors, f"{code}-A", ModelFamily.PLS, max_components=PLS_COMPONENTS)
+        into_service(engine, actors, label)
+        labels.setdefault(ModelFamily.PLS, label)
+    for family in (ModelFamily.BAND, ModelFamily.CLS, ModelFamily.NEIGHBOURS,
+                   ModelFamily.DERIVED):
+        calset, options = OPTIONS[family]
+        labels[family] = train(engine, actors, calset, family, options)
+        into_service(engine, actors, labels[family])
+    for family, label in labels.items():
+        # the look-up is for diesel (imported after the N gasoline spectra)
+        first = N + 1 if family == ModelFamily.NEIGHBOURS else 1
+        with session_scope(engine) as s:
+            predictions.predict(s, actors["analyst"], label,
+                                spectrum_ids=list(range(first, first + 3)))
+    return labels
