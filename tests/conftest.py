@@ -118,3 +118,12 @@ def registry(sqlite_url):
     actors = populate_basics(engine)
     yield engine, actors
     engine.dispose()
+
+
+@pytest.fixture(scope="session")
+def every_family_built(tmp_path_factory):
+    """A registry with one version of each model family in service, with predictions
+    (tests/family_registry.py), built once per session: copy ``.path`` per test."""
+    from tests.family_registry import build_every_family
+
+    return build_every_family(tmp_path_factory.mktemp("every_family"))

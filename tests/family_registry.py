@@ -64,8 +64,9 @@ PLS_COMPONENTS = 8  # octane PLS models (A ≤ 10 by the size rule)
 class FamilyRegistry:
     path: Path
     actors: dict
-    population: object
-    sample_ids: list[str]
+    population: object  # the premium gasoline, spectra 1..N
+    diesel: object  # the B7 diesel, spectra N + 1..N + N_DIESEL
+    labels: dict | None = None  # family → label, after release_every_family
 
 
 def _import(engine, actors, root: Path, pop, prefix: str, grade: str, codes, rng) -> list[str]:
@@ -114,8 +115,8 @@ def build_family_registry(root: Path, n: int = N, n_diesel: int = N_DIESEL,
                                    analyzer=ANALYZER)
     diesel = generate_population(n_diesel, family="diesel", grade=DIESEL_GRADE,
                                  seed=seed + 1, analyzer=ANALYZER)
-    ids = _import(engine, actors, root, gasoline, "F", GRADE,
-                  ("RON", "MON", "BENZENE", "ETHANOL", "MTBE"), rng)
+    _import(engine, actors, root, gasoline, "F", GRADE,
+            ("RON", "MON", "BENZENE", "ETHANOL", "MTBE"), rng)
     diesel_ids = _import(engine, actors, root, diesel, "D", DIESEL_GRADE, ("T50",), rng)
     for code in ("RON", "MON", "BENZENE", "ETHANOL"):
         _freeze(engine, actors, code, GRADE, validation="duplex:0.25")
@@ -128,7 +129,7 @@ def build_family_registry(root: Path, n: int = N, n_diesel: int = N_DIESEL,
                     for m in calibration.members_of(s, ron, "val")]
     _freeze(engine, actors, "AKI", GRADE, validation_external_ids=held_out)
     engine.dispose()
-    return FamilyRegistry(root / "base.db", actors, gasoline, ids)
+    return FamilyRegistry(root / "base.db", actors, gasoline, diesel)
 
 
 def train(engine, actors, calset, family, options=None, **kw) -> str:
@@ -149,6 +150,17 @@ def into_service(engine, actors, label) -> None:
     with session_scope(engine) as s:
         lifecycle.activate_model(s, actors["lab_manager"], label, instrument="IR-100",
                                  password=PASSWORD, reason="into service")
+
+
+def build_every_family(root: Path) -> FamilyRegistry:
+    """:func:`build_family_registry` with one version of each family in service."""
+    reg = build_family_registry(root)
+    engine = make_engine(f"sqlite:///{reg.path}")
+    try:
+        reg.labels = release_every_family(engine, reg.actors)
+    finally:
+        engine.dispose()
+    return reg
 
 
 def release_every_family(engine, actors) -> dict[ModelFamily, str]:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 import streamlit as st
@@ -14,6 +15,7 @@ from registry.services import models as model_svc
 from registry.services import review, views
 from ui.common import (COLOURS, FAILED, PLOT_TEMPLATE, call, flash, may, require_actor, show_flash,
                        when)
+from ui.family_evidence import RENDERERS, default_choice
 from ui.format import num, unit_of
 
 require_actor()
@@ -39,8 +41,8 @@ if not rows:
     st.stop()
 st.subheader("All versions")
 st.dataframe(pd.DataFrame([{
-    "label": r["label"], "property": r["property"], "grade": r["grade"], "state": r["state"],
-    "components": r["components"], "RMSECV": num(r["rmsecv"]),
+    "label": r["label"], "property": r["property"], "grade": r["grade"], "family": r["family"],
+    "state": r["state"], "components": r["components"], "RMSECV": num(r["rmsecv"]),
     "created (UTC)": when(r["created_at"]), "last validated (UTC)": when(r["last_validated_at"])}
     for r in rows]), hide_index=True, key="models_table")
 
@@ -52,103 +54,103 @@ label = st.selectbox("Version", labels,
 d = call(model_svc.model_detail, label)
 if d is FAILED:
     st.stop()
-# the reviewer's evidence below (cross-validation, score-space checks) is that of a PLS
-# version; other families show what they are and their fitted settings
-ev = call(review.model_evidence, label) if d["family"] == "pls" else None
+ev = call(review.model_evidence, label)
 if ev is FAILED:
     st.stop()
+family = str(ev["family"])
+show_version, show_spectrum = RENDERERS[family]
 
 st.subheader(f"{d['label']}: {d['property']} ({d['state']})")
-if ev is None:
-    st.info(f"{d['family']}: {d['description']}")
-    st.json(d["settings"] or {}, expanded=False)
-else:
-    for w in ev["warnings"]:
-        st.warning(w)
-    c = st.columns(4)
-    c[0].metric("Components", d["components"])
-    c[1].metric("Calibration / validation samples", f"{d['calibration_set']['n_cal']} / "
-                f"{d['calibration_set']['n_val']}")
-    c[2].metric("Author", d["author"] or "")
-    c[3].metric("Last validated", d["last_validated_at"].strftime("%Y-%m-%d") if d["last_validated_at"] else "never")
-    st.caption(f"Calibration set {d['calibration_set']['name']} (SHA-256 {d['calibration_set']['sha256'][:16]}…); "
-               f"artifact SHA-256 {d['artifact_sha256'][:16]}…"
-               + (f"; parent {d['parent']}" if d["parent"] else ""))
+st.info(f"Family {family}: {ev['description']}")
+for w in ev["warnings"]:
+    st.warning(w)
+c = st.columns(4)
+c[0].metric("Components" if family == "pls" else "Fitted parameters", d["components"])
+c[1].metric("Calibration / validation samples", f"{d['calibration_set']['n_cal']} / "
+            f"{d['calibration_set']['n_val']}")
+c[2].metric("Author", d["author"] or "")
+c[3].metric("Last validated", d["last_validated_at"].strftime("%Y-%m-%d") if d["last_validated_at"] else "never")
+st.caption(f"Calibration set {d['calibration_set']['name']} (SHA-256 {d['calibration_set']['sha256'][:16]}…); "
+           f"artifact SHA-256 {d['artifact_sha256'][:16]}…"
+           + (f"; parent {d['parent']}" if d["parent"] else ""))
+if d["q_limit"] is not None:
     st.caption(f"Q-residual limit: {describe_q_limit(d['q_limit'])}")
 
-    unit = unit_of(d["unit"])
-    prop = d["property"]
-    cvp, val = ev["cross_validation"], ev["validation_set"]
-    sets = [(name, part, colour, symbol) for name, part, colour, symbol in (
-        ("cross-validation", cvp, COLOURS["calibration"], "circle-open"),
-        ("validation set", val, COLOURS["inside"], "circle")) if part is not None]
-    if sets:
-        st.markdown("**Predicted against reference**")
-        lo = min(float(min(p["reference"].min(), p["predicted"].min())) for _, p, _, _ in sets)
-        hi = max(float(max(p["reference"].max(), p["predicted"].max())) for _, p, _, _ in sets)
-        fig = go.Figure()
+unit = unit_of(d["unit"])
+prop = d["property"]
+cvp, val = ev["cross_validation"], ev["validation_set"]
+sets = [(name, part, colour, symbol) for name, part, colour, symbol in (
+    ("cross-validation", cvp, COLOURS["calibration"], "circle-open"),
+    ("validation set", val, COLOURS["inside"], "circle")) if part is not None]
+if sets:
+    st.markdown("**Predicted against reference**")
+    lo = min(float(np.nanmin(np.r_[p["reference"], p["predicted"]])) for _, p, _, _ in sets)
+    hi = max(float(np.nanmax(np.r_[p["reference"], p["predicted"]])) for _, p, _, _ in sets)
+    fig = go.Figure()
+    for name, part, colour, symbol in sets:
+        fig.add_trace(go.Scatter(x=part["reference"], y=part["predicted"], mode="markers", name=name,
+                                 text=part["sample"], marker={"color": colour, "symbol": symbol}))
+    fig.add_trace(go.Scatter(x=[lo, hi], y=[lo, hi], mode="lines", name="identity (ŷ = y)",
+                             line={"color": COLOURS["limit"], "dash": "dash", "width": 1}))
+    fig.update_layout(template=PLOT_TEMPLATE, height=420, xaxis_title=f"reference {prop}{unit}",
+                      yaxis_title=f"predicted {prop}{unit}", legend={"orientation": "h", "y": -0.25})
+    st.plotly_chart(fig, key="models_pred_ref")
+    r1, r2 = st.columns(2)
+    for col, (xkey, xtitle, key) in zip((r1, r2), (
+            ("reference", f"reference {prop}{unit}", "models_resid_ref"),
+            ("acquired_at", "spectrum acquired (UTC)", "models_resid_time"))):
+        rf = go.Figure()
         for name, part, colour, symbol in sets:
-            fig.add_trace(go.Scatter(x=part["reference"], y=part["predicted"], mode="markers", name=name,
-                                     text=part["sample"], marker={"color": colour, "symbol": symbol}))
-        fig.add_trace(go.Scatter(x=[lo, hi], y=[lo, hi], mode="lines", name="identity (ŷ = y)",
-                                 line={"color": COLOURS["limit"], "dash": "dash", "width": 1}))
-        fig.update_layout(template=PLOT_TEMPLATE, height=420, xaxis_title=f"reference {prop}{unit}",
-                          yaxis_title=f"predicted {prop}{unit}", legend={"orientation": "h", "y": -0.25})
-        st.plotly_chart(fig, key="models_pred_ref")
-        r1, r2 = st.columns(2)
-        for col, (xkey, xtitle, key) in zip((r1, r2), (
-                ("reference", f"reference {prop}{unit}", "models_resid_ref"),
-                ("acquired_at", "spectrum acquired (UTC)", "models_resid_time"))):
-            rf = go.Figure()
-            for name, part, colour, symbol in sets:
-                rf.add_trace(go.Scatter(x=part[xkey], y=part["predicted"] - part["reference"],
-                                        mode="markers", name=name, text=part["sample"],
-                                        marker={"color": colour, "symbol": symbol}))
-            rf.add_hline(y=0, line_color=COLOURS["limit"], line_dash="dash")
-            rf.update_layout(template=PLOT_TEMPLATE, height=340, xaxis_title=xtitle,
-                             yaxis_title=f"residual ŷ − y{unit}", legend={"orientation": "h", "y": -0.35})
-            col.plotly_chart(rf, key=key)
-        st.caption("Cross-validation: each calibration spectrum predicted by the model fitted without "
-                   "its fold, at the chosen size (stored at training). Validation set: the version's "
-                   "own validation samples predicted now, replicates averaged.")
+            rf.add_trace(go.Scatter(x=part[xkey], y=part["predicted"] - part["reference"],
+                                    mode="markers", name=name, text=part["sample"],
+                                    marker={"color": colour, "symbol": symbol}))
+        rf.add_hline(y=0, line_color=COLOURS["limit"], line_dash="dash")
+        rf.update_layout(template=PLOT_TEMPLATE, height=340, xaxis_title=xtitle,
+                         yaxis_title=f"residual ŷ − y{unit}", legend={"orientation": "h", "y": -0.35})
+        col.plotly_chart(rf, key=key)
+    without = int(np.count_nonzero(~np.isfinite(val["predicted"]))) if val is not None else 0
+    st.caption(("Cross-validation: each calibration spectrum predicted by the model fitted "
+                "without its fold, at the chosen size (stored at training). " if cvp is not None
+                else "")
+               + "Validation set: the version's own validation samples predicted now, "
+               "replicates averaged."
+               + (f" {without} validation sample(s) got no value and are not drawn." if without
+                  else ""))
 
-    curve = ev["cv_curve"]
-    rmsecv = curve["rmsecv"]
-    if rmsecv:
-        a = list(range(1, len(rmsecv) + 1))
-        chosen = curve["chosen"]
-        fig = go.Figure()
-        fig.add_trace(go.Scatter(x=a, y=rmsecv, mode="lines+markers", name="RMSECV",
-                                 line={"color": COLOURS["line"]}, marker={"color": COLOURS["line"]}))
-        fig.add_trace(go.Scatter(x=[chosen], y=[rmsecv[chosen - 1]], mode="markers",
-                                 name=f"chosen A = {chosen}",
-                                 marker={"color": COLOURS["marker"], "size": 14, "symbol": "diamond"}))
-        fig.add_vline(x=chosen, line_dash="dot", line_color=COLOURS["limit"])
-        fig.update_layout(template=PLOT_TEMPLATE, height=360, xaxis_title="components (A, count)",
-                          yaxis_title=f"RMSECV{unit}", xaxis={"dtick": 1},
-                          title=f"Cross-validation ({curve['method'] or ''}, {curve['n_folds'] or ''} "
-                                f"folds; rule: {curve['rule'] or ''})")
-        st.plotly_chart(fig, key="models_cv")
+st.markdown(f"**Evidence of the {family} family**")
+show_version(ev, prop, unit)
+spectra = ev["spectra"]
+if spectra:
+    choice = st.selectbox("Spectrum to explain", range(len(spectra)),
+                          index=default_choice(family, spectra),
+                          format_func=lambda k: spectra[k]["label"], key=f"models_spectrum_{label}")
+    sp = call(review.spectrum_evidence, label, spectra[choice]["spectrum_id"])
+    if sp is not FAILED:
+        ref = spectra[choice]["reference"]
+        st.caption(f"Spectrum {sp['spectrum_id']} of sample {sp['sample']}"
+                   + (f"; reference {prop} {num(ref)}{unit}" if ref is not None else "")
+                   + ". A model result does not replace the specification test method.")
+        show_spectrum(sp, prop, unit)
 
-    st.markdown("**Statistics beside the reference method's precision**")
-    lv, pr = ev["latest_validation"], ev["precision"]
-    stats = [("reference method", pr["method"] or "none active"),
-             ("level (mean reference)", num(pr["level"])),
-             ("r (repeatability limit)", num(pr["r"])), ("R (reproducibility limit)", num(pr["R"])),
-             ("σ_R = R/2.77", num(pr["sigma_R"]))]
-    if lv is not None:
-        stats += [("validation record", f"{lv['id']} ({lv['kind']}, n = {lv['n']}, by {lv['by']})"),
-                  ("SEP", num(lv["sep"])), ("RMSEP", num(lv["rmsep"])), ("bias", num(lv["bias"])),
-                  ("bias p", num(lv["bias_p"])), ("R²", num(lv["r2"])),
-                  ("SEP/σ_R", num(lv["sep_over_sigma_r"])), ("1.96·SEP (compare with R)", num(lv["sep_95"])),
-                  ("acceptance rule", lv["rule"]),
-                  ("verdict", "passed" if lv["passed"] else "failed: " + "; ".join(lv["reasons"]))]
-    else:
-        stats.append(("verdict", "not validated yet"))
-    st.dataframe(pd.DataFrame(stats, columns=["", f"value{unit}"]), hide_index=True,
-                 key="models_stats")
+st.markdown("**Statistics beside the reference method's precision**")
+lv, pr = ev["latest_validation"], ev["precision"]
+stats = [("reference method", pr["method"] or "none active"),
+         ("level (mean reference)", num(pr["level"])),
+         ("r (repeatability limit)", num(pr["r"])), ("R (reproducibility limit)", num(pr["R"])),
+         ("σ_R = R/2.77", num(pr["sigma_R"]))]
+if lv is not None:
+    stats += [("validation record", f"{lv['id']} ({lv['kind']}, n = {lv['n']}, by {lv['by']})"),
+              ("SEP", num(lv["sep"])), ("RMSEP", num(lv["rmsep"])), ("bias", num(lv["bias"])),
+              ("bias p", num(lv["bias_p"])), ("R²", num(lv["r2"])),
+              ("SEP/σ_R", num(lv["sep_over_sigma_r"])), ("1.96·SEP (compare with R)", num(lv["sep_95"])),
+              ("acceptance rule", lv["rule"]),
+              ("verdict", "passed" if lv["passed"] else "failed: " + "; ".join(lv["reasons"]))]
+else:
+    stats.append(("verdict", "not validated yet"))
+st.dataframe(pd.DataFrame(stats, columns=["", f"value{unit}"]), hide_index=True,
+             key="models_stats")
 
-    st.markdown("**Validation records**")
+st.markdown("**Validation records**")
 if d["validations"]:
     st.dataframe(pd.DataFrame([{
         "id": v["id"], "kind": v["kind"], "passed": v["passed"], "n": v["n"],
