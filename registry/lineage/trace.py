@@ -437,6 +437,11 @@ def _prediction_parts(session: Session, lk: _Lookups, pred: Prediction, doc: dic
     integrity["spectrum_hash_ok"] = sp_ok
     if not sp_ok:
         integrity["altered"].append(f"spectrum {sp.id}")
+    links = sorted(((pred.diagnostics or {}).get("inputs") or {}).items())
+    input_ids = [link.get("model_version_id") for _, link in links
+                 if link.get("model_version_id") is not None]
+    families = dict(session.execute(select(ModelVersion.id, ModelVersion.family).where(
+        ModelVersion.id.in_(input_ids))).all()) if input_ids else {}
     doc["prediction"] = {
         "id": pred.id, "value": pred.value, "property": prop.code if prop else None,
         "unit": prop.unit if prop else None, "model": mv.label,
@@ -446,10 +451,10 @@ def _prediction_parts(session: Session, lk: _Lookups, pred: Prediction, doc: dic
         # a derived result: each input result it combined and the version that gave it
         "inputs": [{"property": code, "model": link.get("model"),
                     "model_version_id": link.get("model_version_id"),
+                    "family": families.get(link.get("model_version_id")),
                     "prediction_id": link.get("prediction_id"), "value": link.get("value"),
                     "flags": link.get("flags", [])}
-                   for code, link in sorted(((pred.diagnostics or {}).get("inputs")
-                                             or {}).items())]}
+                   for code, link in links]}
     doc["spectrum"] = {**_spectrum_doc(lk, sp), "hash_ok": sp_ok, "sample_id": sample.external_id,
                        "axis": {"id": axis.id, "unit": axis.unit, "n_points": axis.n_points,
                                 "first_x": axis.first_x, "last_x": axis.last_x,
@@ -481,10 +486,11 @@ def _sample_record(session: Session, lk: _Lookups, sample: Sample, prop, integri
     models: dict[int, list] = {}
     if set_ids:
         for row in session.execute(select(ModelVersion.id, ModelVersion.label, ModelVersion.state,
-                                          ModelVersion.calibration_set_id).where(
-                ModelVersion.calibration_set_id.in_(set_ids)).order_by(ModelVersion.id)):
+                                          ModelVersion.family, ModelVersion.calibration_set_id)
+                                   .where(ModelVersion.calibration_set_id.in_(set_ids))
+                                   .order_by(ModelVersion.id)):
             models.setdefault(row.calibration_set_id, []).append(
-                {"id": row.id, "label": row.label, "state": row.state})
+                {"id": row.id, "label": row.label, "state": row.state, "family": row.family})
     return {
         "sample": _sample_doc(lk, sample), "property": prop.code,
         "spectra": [_spectrum_doc(lk, sp) for sp in spectra],

@@ -79,6 +79,21 @@ def _spectrum_text(sp: dict) -> str:
 
 
 # --------------------------------------------------------------------------- tree
+def _version(m: dict) -> str:
+    """A version named with its family: a look-up is not called a model."""
+    return f"{m.get('family') or 'model'} version {m['label']}"
+
+
+def _input_text(i: dict) -> str:
+    return (f"input {i['property']} = {_num(i['value'], 6)}: prediction {i['prediction_id']} by "
+            f"{i.get('family') or 'model'} version {i['model']}")
+
+
+def _models_text(models: list[dict]) -> str:
+    return ", ".join(f"{m['label']} ({m.get('family') or 'model'}, {m['state']})"
+                     for m in models) or "none"
+
+
 def _model_node(m: dict) -> Node:
     kids: list[Node] = [
         (f"recipe: {_recipe(m['recipe'])}", []),
@@ -129,7 +144,7 @@ def _model_node(m: dict) -> Node:
                      [(r, []) for r in due["reasons"]]))
     else:
         kids.append((f"revalidation: not applicable in state {m['state']}", []))
-    return (f"model {m['label']} ({m['property']}, {m['state']}), author {m['author']}, "
+    return (f"{_version(m)} ({m['property']}, {m['state']}), author {m['author']}, "
             f"created {_when(m['created_at'])}", kids)
 
 
@@ -157,8 +172,7 @@ def _sample_record_node(rec: dict) -> Node:
     kids = [(_spectrum_text(sp), []) for sp in rec["spectra"]]
     kids += [(_result_text(r), []) for r in rec["reference_results"]]
     kids += [(f"member of calibration set {c['name']} ({c['role']}, reference value "
-              f"{_num(c['reference_value'], 6)}); models: "
-              + (", ".join(f"{m['label']} ({m['state']})" for m in c["models"]) or "none"), [])
+              f"{_num(c['reference_value'], 6)}); versions: {_models_text(c['models'])}", [])
              for c in rec["calibration_sets"]]
     return (f"sample {rec['sample']['external_id']}: record for {rec['property']}", kids)
 
@@ -167,8 +181,9 @@ def _title(doc: dict) -> str:
     root = doc["root"]
     p = doc.get("prediction")
     if p:
+        m = doc.get("model") or {"label": p["model"]}
         return (f"Trace of prediction {p['id']}: {p['property']} = {_num(p['value'], 6)} "
-                f"by model {p['model']}")
+                f"by {_version(m)}")
     if root["kind"] == "sample":
         return f"Trace of sample {root['sample']} for {root['property']} (no prediction)"
     return f"Trace of model version {root.get('model')}"
@@ -200,9 +215,7 @@ def tree(doc: dict) -> Node:
         kids.append((f"prediction {p['id']}: {p['property']} = {value}"
                      f" on {p['instrument']} at {_when(p['predicted_at'])} by {p['by']}; flags: "
                      f"{', '.join(p['flags']) or 'none'}",
-                     [(f"input {i['property']} = {_num(i['value'], 6)}: prediction "
-                       f"{i['prediction_id']} by model {i['model']}", [])
-                      for i in p.get("inputs") or []]))
+                     [(_input_text(i), []) for i in p.get("inputs") or []]))
     sp = doc.get("spectrum")
     if sp:
         kids.append((f"spectrum #{sp['id']} of sample {sp['sample_id']} sha256 {sp['sha256']} "
@@ -306,14 +319,19 @@ def _spectra_table(spectra: list[dict]) -> str:
 
 
 def _model_html(m: dict) -> str:
-    parts = [f"<h2>Model version {_e(m['label'])}</h2>", _dl([
+    cv = m["cv"]
+    fit = ([("components", _e(m["n_components"])),
+            ("RMSECV at chosen size", _e(cv.get("rmsecv_at_selected"))),
+            ("cross-validation", _e(f"{cv.get('method')}, {cv.get('n_folds')} folds, "
+                                    f"{cv.get('selection_rule')}"))]
+           if cv.get("method") != "none" else
+           [("fitted parameters", _e(m["n_components"])),
+            ("cross-validation", "none (this family stores no cross-validation curve)")])
+    parts = [f"<h2>Version {_e(m['label'])} ({_e(m.get('family') or 'model')})</h2>", _dl([
+        ("family", _e(f"{m.get('family')}: {m.get('description') or ''}")),
         ("property", _e(m["property"])), ("grade", _e(m["grade"])), ("state", _e(m["state"])),
         ("author", _e(m["author"])), ("created", _e(_when(m["created_at"]))),
-        ("parent", _e(m["parent"])), ("recipe", _e(_recipe(m["recipe"]))),
-        ("components", _e(m["n_components"])),
-        ("RMSECV at chosen size", _e(m["cv"].get("rmsecv_at_selected"))),
-        ("cross-validation", _e(f"{m['cv'].get('method')}, {m['cv'].get('n_folds')} folds, "
-                                f"{m['cv'].get('selection_rule')}")),
+        ("parent", _e(m["parent"])), ("recipe", _e(_recipe(m["recipe"]))), *fit,
         ("artifact sha256", f"<code>{_e(m['artifact_sha256'])}</code> {_flag(m['artifact_hash_ok'])}"),
         ("Q-residual limit", _e(describe_q_limit(m.get("q_limit")))),
         ("last validated", _e(_when(m["last_validated_at"])))])]
@@ -419,7 +437,9 @@ def render_html(doc: dict) -> str:
             ("instrument", _e(p["instrument"])), ("predicted at", _e(_when(p["predicted_at"]))),
             ("by", _e(p["by"])),
             ("flags", _e(", ".join(p["flags"])) if p["flags"] else '<span class="ok">none</span>'),
-            ("diagnostics", _e(", ".join(f"{k} {_num(v)}" for k, v in p["diagnostics"].items())))]))
+            ("inputs", _e("; ".join(_input_text(i) for i in p.get("inputs") or []) or "none")),
+            ("diagnostics", _e(", ".join(f"{k} {_num(v)}" for k, v in p["diagnostics"].items()
+                                         if k != "inputs")))]))
     sp = doc.get("spectrum")
     if sp:
         body.append("<h2>Spectrum</h2>" + _dl([
@@ -438,7 +458,7 @@ def render_html(doc: dict) -> str:
                         ["set", "role", "reference value", "sha256", "models"],
                         [[_e(c["name"]), _e(c["role"]), _e(c["reference_value"]),
                           f"<code>{_e(c['sha256'])}</code>",
-                          _e(", ".join(f"{m['label']} ({m['state']})" for m in c["models"]))]
+                          _e(_models_text(c["models"]))]
                          for c in rec["calibration_sets"]]))
     if doc.get("model"):
         body.append(_model_html(doc["model"]))

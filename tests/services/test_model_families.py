@@ -21,6 +21,7 @@ from sqlmodel import select
 from registry.chemometrics.family_names import ModelFamily
 from registry.errors import InputError
 from registry.lineage.trace import load_schema
+from registry.lineage.trace_render import render_text
 from registry.services import audit as audit_svc
 from registry.services import intake, models, predictions
 from registry.services.revalidation import list_triggers
@@ -92,11 +93,29 @@ def test_spectral_family_goes_through_the_whole_lifecycle(reg, family):
 
 
 def test_neighbour_lookup_says_it_is_not_a_model(reg):
+    """The trace of a looked-up result says, in JSON, text and HTML, that it is a look-up
+    of similar samples and names every version by its family."""
+    from registry.lineage.trace_render import render_html
+
     engine, actors, _ = reg
-    label = train(engine, actors, "T50-A", ModelFamily.NEIGHBOURS, {"n_neighbors": 1})
+    calset, options = SPECS[ModelFamily.NEIGHBOURS]
+    label = train(engine, actors, calset, ModelFamily.NEIGHBOURS, options)
+    into_service(engine, actors, label)
+    batch, doc = predict_trace_verify(engine, actors, label, DIESEL_SPECTRA)
+    statement = "look-up of similar samples, not a model"
+    assert statement in doc["model"]["description"]
+    text, page = render_text(doc), render_html(doc)
+    assert text.splitlines()[0].endswith(f"by neighbours version {label}")
+    assert f"neighbours: {statement}" in text
+    assert f"Version {label} (neighbours)" in page and statement in page
+    assert "none (this family stores no cross-validation curve)" in page
+    assert f"model {label}" not in text and "by model" not in text
     with session_scope(engine) as s:
-        doc = audit_svc.trace(s, actors["auditor"], model=label)
-    assert "look-up of similar samples, not a model" in doc["model"]["description"]
+        sample = audit_svc.trace(s, actors["auditor"], sample=doc["sample"]["external_id"],
+                                 property_code="T50")
+    models_of_sets = [m for c in sample["sample_record"]["calibration_sets"] for m in c["models"]]
+    assert models_of_sets and {m["family"] for m in models_of_sets} == {"neighbours"}
+    assert f"{label} (neighbours, active)" in render_text(sample)
 
 
 def test_lookup_without_a_value_fails_validation(reg):
@@ -159,6 +178,9 @@ def test_derived_property_points_to_its_inputs_and_falls_due_when_one_changes(re
             mv = s.get(ModelVersion, row.model_version_id)
             assert mv.label == link["model"] and row.value == link["value"]
             assert row.spectrum_id == doc["spectrum"]["id"]
+    assert [i["family"] for i in p["inputs"]] == ["pls", "pls"]
+    text = render_text(doc)
+    assert f"by pls version {ron}" in text and f"by derived version {label}" in text
     inputs = {c: l["value"] for c, l in p["diagnostics"]["inputs"].items()}
     # AKI = (RON + MON)/2 (ASTM D4814, from memory)
     assert p["value"] == pytest.approx((inputs["RON"] + inputs["MON"]) / 2, rel=1e-12)
