@@ -289,7 +289,12 @@ def model_evidence(session: Session, actor: Actor, label: str) -> dict[str, Any]
     cs = session.get(CalibrationSet, mv.calibration_set_id)
     model = load_fitted(mv.artifact, mv.artifact_sha256)
     cv = _cross_validated(session, mv, model, cs)
-    val = _validation_set(session, mv, model, cs)
+    warnings = _warnings(session, mv)
+    try:
+        val = _validation_set(session, mv, model, cs)
+    except StateError as exc:  # an input property has no version in use: say why, show the rest
+        val = None
+        warnings.append(f"The validation set cannot be predicted now: {exc}.")
     family = model.evidence()
     rec = session.exec(select(ValidationRecord).where(ValidationRecord.model_version_id == mv.id)
                        .order_by(ValidationRecord.id.desc())).first()
@@ -314,8 +319,7 @@ def model_evidence(session: Session, actor: Actor, label: str) -> dict[str, Any]
             "precision": _method_precision(session, mv.property_id, level),
             "latest_validation": latest, "family_evidence": family,
             "inputs": _input_versions(session, mv, model, family.get("input_models") or {}),
-            "spectra": _evidence_spectra(session, mv, cs, val),
-            "warnings": _warnings(session, mv)}
+            "spectra": _evidence_spectra(session, mv, cs, val), "warnings": warnings}
 
 
 def spectrum_evidence(session: Session, actor: Actor, label: str,

@@ -211,3 +211,24 @@ def test_lookup_neighbours_equal_scikit_learn(fam):
     values = np.asarray(f["calibration_y"])[idx[0]]
     assert sp["spread"] == pytest.approx(values.max() - values.min(), rel=1e-12)
     assert sp["distance_limit"] == 1.5 and not sp["flags"]
+
+
+def test_derived_evidence_says_when_an_input_has_no_version_in_use(fam):
+    """With its RON model retired, the derived version's validation set cannot be
+    predicted: the evidence says so (a warning naming RON) and still gives the formula and
+    the inputs, the RON row marked as changed with no version in use."""
+    from registry.services import lifecycle
+    from tests.conftest import PASSWORD
+
+    engine, reg = fam
+    with session_scope(engine) as s:
+        lifecycle.retire_model(s, reg.actors["lab_manager"], reg.labels[ModelFamily.PLS],
+                               password=PASSWORD, reason="superseded")
+    with session_scope(engine) as s:
+        ev = review.model_evidence(s, reg.actors["auditor"], reg.labels[ModelFamily.DERIVED])
+    assert ev["validation_set"] is None
+    assert any("cannot be predicted now" in w and "RON" in w for w in ev["warnings"])
+    assert ev["family_evidence"]["formula"] == "(RON + MON) / 2"
+    ron = next(i for i in ev["inputs"] if i["code"] == "RON")
+    assert ron["current"] is None and ron["changed"] is True
+    assert ev["latest_validation"]["passed"] is True  # the stored record is still shown
