@@ -32,7 +32,8 @@ from tests.factories import copy_sqlite
 from tests.family_registry import (N, N_DIESEL, OPTIONS, PLS_COMPONENTS, build_family_registry,
                                    into_service, train)
 
-pytestmark = pytest.mark.slow  # the registry build takes about 7 s on 2 cores
+#: Tests on the registry: its build takes about 7 s on 2 cores.
+slow = pytest.mark.slow
 
 
 @pytest.fixture(scope="module")
@@ -73,6 +74,7 @@ SPECS = {family: OPTIONS[family] for family in
 GASOLINE_SPECTRA, DIESEL_SPECTRA = (1, 2, 3), (N + 1, N + 2, N + 3)
 
 
+@slow
 @pytest.mark.parametrize("family", list(SPECS))
 def test_spectral_family_goes_through_the_whole_lifecycle(reg, family):
     engine, actors, pop = reg
@@ -92,6 +94,7 @@ def test_spectral_family_goes_through_the_whole_lifecycle(reg, family):
         assert "not_in_service" not in p["flags"]
 
 
+@slow
 def test_neighbour_lookup_says_it_is_not_a_model(reg):
     """The trace of a looked-up result says, in JSON, text and HTML, that it is a look-up
     of similar samples and names every version by its family."""
@@ -118,6 +121,7 @@ def test_neighbour_lookup_says_it_is_not_a_model(reg):
     assert f"{label} (neighbours, active)" in render_text(sample)
 
 
+@slow
 def test_lookup_without_a_value_fails_validation(reg):
     """A validation sample farther from every calibration sample than the look-up's limit
     gets no value; the record says so and does not pass (the statistics cover the rest)."""
@@ -134,6 +138,7 @@ def test_lookup_without_a_value_fails_validation(reg):
     assert any("got no value" in r for r in rec.reasons)
 
 
+@slow
 def test_band_model_value_follows_the_band_calibration(reg):
     """The stored value is the artifact's own calibration of the band height (y = b0 +
     b1·v, v from band_values on the same spectrum): the service adds nothing of its own."""
@@ -162,6 +167,7 @@ def octane_models_in_service(engine, actors) -> tuple[str, str]:
     return out[0], out[1]
 
 
+@slow
 def test_derived_property_points_to_its_inputs_and_falls_due_when_one_changes(reg):
     engine, actors, pop = reg
     ron, mon = octane_models_in_service(engine, actors)
@@ -199,6 +205,7 @@ def test_derived_property_points_to_its_inputs_and_falls_due_when_one_changes(re
         assert not list_triggers(s, actors["auditor"], label=label)
 
 
+@slow
 def test_unknown_family_and_option_are_refused_before_anything_is_written(reg):
     engine, actors, _ = reg
     with pytest.raises(InputError) as err:
@@ -228,6 +235,7 @@ def test_services_do_not_branch_on_the_family():
     assert found == [("models.py", "mv.family != ModelFamily.PLS")]
 
 
+@slow
 def test_cli_trains_a_family_from_a_recipe_file_and_lists_the_family(reg, tmp_path):
     import json
 
@@ -256,6 +264,7 @@ def test_cli_trains_a_family_from_a_recipe_file_and_lists_the_family(reg, tmp_pa
     assert "F0000" in res.output and "not_in_service" in res.output  # a draft is not in service
 
 
+@slow
 def test_cls_takes_k_from_pure_component_spectra_imported_as_samples(reg, tmp_path):
     """K from a pure-component reference spectrum: the row of K is the imported spectrum
     (after the set's preprocessing) divided by the stated concentration — Beer–Lambert,
@@ -289,6 +298,7 @@ def test_cls_takes_k_from_pure_component_spectra_imported_as_samples(reg, tmp_pa
               {"pure_spectra": {"AROMATICS": {"sample": "PURE-ETOH", "value": 100.0}}})
 
 
+@slow
 def test_selection_and_coverage_refuse_a_property_whose_current_model_is_not_pls(reg):
     """Selection and the coverage map work in a PLS score space: when the current model of
     the property is a band calibration, both refuse with a message that names the
