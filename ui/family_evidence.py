@@ -17,7 +17,12 @@ import plotly.graph_objects as go
 import streamlit as st
 
 from ui.common import COLOURS, PLOT_TEMPLATE
-from ui.format import num
+from ui.format import num, unit_of
+
+
+def _u(unit: str | None) -> str:
+    """The unit after a value in running text (nothing for a dimensionless scale)."""
+    return f" {unit}" if unit else ""
 
 #: What a look-up is, in words the page and the trace share (registry DESCRIPTIONS).
 LOOKUP_STATEMENT = ("This is a look-up of similar tested samples, not a model: a result is the "
@@ -33,7 +38,7 @@ def _figure(title: str, height: int, **axes) -> go.Figure:
 
 
 # --------------------------------------------------------------------------- PLS
-def pls_version(ev: dict, prop: str, unit: str) -> None:
+def pls_version(ev: dict, prop: str, unit: str | None) -> None:
     curve = ev["cv_curve"]
     rmsecv = curve["rmsecv"]
     if not rmsecv:
@@ -42,7 +47,7 @@ def pls_version(ev: dict, prop: str, unit: str) -> None:
     chosen = curve["chosen"]
     fig = _figure(f"Cross-validation ({curve['method'] or ''}, {curve['n_folds'] or ''} folds; "
                   f"rule: {curve['rule'] or ''})", 360, xaxis_title="components (A, count)",
-                  yaxis_title=f"RMSECV{unit}", xaxis={"dtick": 1})
+                  yaxis_title=f"RMSECV{unit_of(unit)}", xaxis={"dtick": 1})
     fig.add_trace(go.Scatter(x=a, y=rmsecv, mode="lines+markers", name="RMSECV",
                              line={"color": COLOURS["line"]}, marker={"color": COLOURS["line"]}))
     fig.add_trace(go.Scatter(x=[chosen], y=[rmsecv[chosen - 1]], mode="markers",
@@ -52,7 +57,7 @@ def pls_version(ev: dict, prop: str, unit: str) -> None:
     st.plotly_chart(fig, key="models_cv")
 
 
-def pls_spectrum(sp: dict, prop: str, unit: str) -> None:
+def pls_spectrum(sp: dict, prop: str, unit: str | None) -> None:
     checks = [("leverage", "leverage_limit"), ("t2", "t2_limit"), ("q", "q_limit"),
               ("nn_distance", "nn_limit")]
     st.dataframe(pd.DataFrame([{"check": name, "value": num(sp.get(name)),
@@ -61,7 +66,7 @@ def pls_spectrum(sp: dict, prop: str, unit: str) -> None:
 
 
 # --------------------------------------------------------------------------- band
-def band_version(ev: dict, prop: str, unit: str) -> None:
+def band_version(ev: dict, prop: str, unit: str | None) -> None:
     fam = ev["family_evidence"]
     v, y = np.asarray(fam["calibration_values"]), np.asarray(fam["calibration_y"])
     coef, se = fam["coefficients"], fam["coefficient_se"]
@@ -72,7 +77,7 @@ def band_version(ev: dict, prop: str, unit: str) -> None:
     fig = _figure(f"Calibration line: band {measure} ({band}) against reference {prop}", 380,
                   xaxis_title=f"band {measure} above the baseline (absorbance"
                               + (" × cm⁻¹)" if measure == "area" else ")"),
-                  yaxis_title=f"reference {prop}{unit}")
+                  yaxis_title=f"reference {prop}{unit_of(unit)}")
     fig.add_trace(go.Scatter(x=v, y=y, mode="markers", name="calibration samples",
                              marker={"color": COLOURS["calibration"], "symbol": "circle-open"}))
     fig.add_trace(go.Scatter(x=grid, y=line, mode="lines", name="least-squares line",
@@ -92,7 +97,7 @@ def band_version(ev: dict, prop: str, unit: str) -> None:
                  key="models_band_fit")
 
 
-def band_spectrum(sp: dict, prop: str, unit: str) -> None:
+def band_spectrum(sp: dict, prop: str, unit: str | None) -> None:
     fig = _figure(f"Band region of {sp['sample']}: absorbance, baseline anchors and baseline",
                   380, xaxis_title="wavenumber (cm⁻¹)", yaxis_title="absorbance",
                   xaxis={"autorange": "reversed"})
@@ -107,12 +112,12 @@ def band_spectrum(sp: dict, prop: str, unit: str) -> None:
         fig.add_vline(x=edge, line_dash="dot", line_color=COLOURS["limit"])
     st.plotly_chart(fig, key="models_band_spectrum")
     st.caption(f"Band {sp['measure']} above the baseline: {num(sp['band_value'])}; "
-               f"{prop} from the calibration line: {num(sp['y_pred'])}{unit}. Dotted lines: "
+               f"{prop} from the calibration line: {num(sp['y_pred'])}{_u(unit)}. Dotted lines: "
                "the band limits.")
 
 
 # --------------------------------------------------------------------------- CLS
-def cls_version(ev: dict, prop: str, unit: str) -> None:
+def cls_version(ev: dict, prop: str, unit: str | None) -> None:
     fam = ev["family_evidence"]
     names = fam.get("outputs") or [str(j) for j in range(len(fam["K"]))]
     fig = _figure(f"Component spectra (rows of K, {fam['k_source'].replace('_', ' ')}): "
@@ -135,7 +140,7 @@ def cls_version(ev: dict, prop: str, unit: str) -> None:
         hide_index=True, key="models_cls_settings")
 
 
-def cls_spectrum(sp: dict, prop: str, unit: str) -> None:
+def cls_spectrum(sp: dict, prop: str, unit: str | None) -> None:
     fig = _figure(f"{sp['sample']}: measured spectrum, CLS fit and residual", 420,
                   xaxis_title="wavenumber (cm⁻¹)", yaxis_title="absorbance (preprocessed)",
                   xaxis={"autorange": "reversed"})
@@ -157,7 +162,7 @@ def cls_spectrum(sp: dict, prop: str, unit: str) -> None:
 
 
 # --------------------------------------------------------------------------- derived
-def derived_version(ev: dict, prop: str, unit: str) -> None:
+def derived_version(ev: dict, prop: str, unit: str | None) -> None:
     fam = ev["family_evidence"]
     st.markdown(f"Formula: `{prop} = {fam['formula']}`")
     st.dataframe(pd.DataFrame([{
@@ -172,19 +177,19 @@ def derived_version(ev: dict, prop: str, unit: str) -> None:
                "§5.1.2). A changed input version makes the derived version due.")
 
 
-def derived_spectrum(sp: dict, prop: str, unit: str) -> None:
+def derived_spectrum(sp: dict, prop: str, unit: str | None) -> None:
     st.dataframe(pd.DataFrame([{
         "input": i["code"], "result": num(i["value"]),
         "version": (sp["inputs_used"].get(i["code"]) or {}).get("model"),
         "∂f/∂x": num(i["derivative"]), "SEP": num(i["sep"]),
         "(∂f/∂x·SEP)²": num(i["contribution"])} for i in sp["inputs"]]),
         hide_index=True, key="models_derived_terms")
-    st.markdown(f"{prop} = {num(sp['y_pred'])}{unit}, propagated uncertainty "
-                f"u = {num(sp['uncertainty'])}{unit} (first order)")
+    st.markdown(f"{prop} = {num(sp['y_pred'])}{_u(unit)}, propagated uncertainty "
+                f"u = {num(sp['uncertainty'])}{_u(unit)} (first order)")
 
 
 # --------------------------------------------------------------------------- neighbours
-def neighbours_version(ev: dict, prop: str, unit: str) -> None:
+def neighbours_version(ev: dict, prop: str, unit: str | None) -> None:
     fam = ev["family_evidence"]
     st.info(LOOKUP_STATEMENT)
     space = ("Mahalanobis distance on PCA scores "
@@ -198,24 +203,26 @@ def neighbours_version(ev: dict, prop: str, unit: str) -> None:
             " (set by the lab)" if fam["distance_limit_given"]
             else " (largest nearest-neighbour distance within the calibration set)")),
         ("tested samples to look up", str(fam["n_samples"])),
-        (f"their {prop} range", f"{num(y.min())} – {num(y.max())}{unit}")],
+        (f"their {prop} range", f"{num(y.min())} – {num(y.max())}{_u(unit)}")],
         columns=["look-up", "value"]), hide_index=True, key="models_lookup_settings")
 
 
-def neighbours_spectrum(sp: dict, prop: str, unit: str) -> None:
+def neighbours_spectrum(sp: dict, prop: str, unit: str | None) -> None:
     names = sp.get("samples") or [str(i) for i in sp["neighbour_index"]]
     st.dataframe(pd.DataFrame({"neighbour sample": names,
                                "distance": [num(d) for d in sp["neighbour_distance"]],
-                               f"reference {prop}{unit}": [num(v) for v in sp["neighbour_value"]]}),
+                               f"reference {prop}{unit_of(unit)}":
+                                   [num(v) for v in sp["neighbour_value"]]}),
                  hide_index=True, key="models_lookup_neighbours")
     value = ("no value: the nearest tested sample lies beyond the distance limit"
-             if sp["y_pred"] is None else f"looked-up {prop} {num(sp['y_pred'])}{unit}")
+             if sp["y_pred"] is None else f"looked-up {prop} {num(sp['y_pred'])}{_u(unit)}")
     st.markdown(f"{value}; spread of the neighbours' values (max − min) {num(sp['spread'])}"
-                f"{unit}, their SD {num(sp['sd'])}{unit}; nearest distance "
+                f"{_u(unit)}, their SD {num(sp['sd'])}{_u(unit)}; nearest distance "
                 f"{num(sp['neighbour_distance'][0])} against the limit {num(sp['distance_limit'])}")
 
 
-Renderer = Callable[[dict, str, str], None]
+#: (payload, property code, the property's unit or None)
+Renderer = Callable[[dict, str, "str | None"], None]
 #: family → (version evidence, one spectrum's evidence)
 RENDERERS: dict[str, tuple[Renderer, Renderer]] = {
     "pls": (pls_version, pls_spectrum),

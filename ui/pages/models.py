@@ -118,7 +118,7 @@ if sets:
                   else ""))
 
 st.markdown(f"**Evidence of the {family} family**")
-show_version(ev, prop, unit)
+show_version(ev, prop, d["unit"])
 spectra = ev["spectra"]
 if spectra:
     choice = st.selectbox("Spectrum to explain", range(len(spectra)),
@@ -130,7 +130,7 @@ if spectra:
         st.caption(f"Spectrum {sp['spectrum_id']} of sample {sp['sample']}"
                    + (f"; reference {prop} {num(ref)}{unit}" if ref is not None else "")
                    + ". A model result does not replace the specification test method.")
-        show_spectrum(sp, prop, unit)
+        show_spectrum(sp, prop, d["unit"])
 
 st.markdown("**Statistics beside the reference method's precision**")
 lv, pr = ev["latest_validation"], ev["precision"]
