@@ -450,12 +450,12 @@ def _space_axis(session: Session, setting: SelectionSetting, refs: list[Spectrum
     return axis_values(session.get(SpectralAxis, axis_id))
 
 
-def mean_spectra(session: Session, spectra: list[list[SpectrumRef]], axis: np.ndarray,
-                  progress: Progress | None, label: str) -> np.ndarray:
-    """One row per sample: the mean of its spectra, on ``axis``."""
+def mean_spectra(session: Session, spectra: list[list[int]], axis: np.ndarray,
+                 progress: Progress | None = None, label: str = "loading spectra") -> np.ndarray:
+    """One row per sample (a list of its spectrum ids): the mean of its spectra, on ``axis``."""
     if not spectra:
         return np.empty((0, axis.size))
-    flat = [r.id for refs in spectra for r in refs]
+    flat = [sid for ids in spectra for sid in ids]
     owner = np.repeat(np.arange(len(spectra)), [len(refs) for refs in spectra])
     sums = np.zeros((len(spectra), axis.size))
     for start in range(0, len(flat), _LOAD_BLOCK):
@@ -494,9 +494,9 @@ def build_pool(session: Session, setting: SelectionSetting, *, ignore_run_id: in
     ref_ids, ref_spectra, ref_text, ref_values = _reference(session, setting)
     axis = _space_axis(session, setting, [r for refs in (*spectra.values(), *ref_spectra.values())
                                           for r in refs])
-    X_uni = mean_spectra(session, [spectra[s] for s in universe], axis, progress,
+    X_uni = mean_spectra(session, [[r.id for r in spectra[s]] for s in universe], axis, progress,
                           "loading candidate spectra")
-    X_ref = mean_spectra(session, [ref_spectra[s] for s in ref_ids], axis, progress,
+    X_ref = mean_spectra(session, [[r.id for r in ref_spectra[s]] for s in ref_ids], axis, progress,
                           "loading calibration spectra")
     diagnostics = model_view(setting.trained, X_uni, axis)
     if req.pool == "outside-coverage":
