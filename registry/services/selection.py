@@ -86,7 +86,8 @@ from .views import recent_production
 __all__ = ["METHODS", "METRICS", "POOLS", "SEND_LIST_COLUMNS", "CandidatePool", "ScoreSpace",
            "SelectionRequest", "SelectionResult", "SelectionSetting", "build_pool", "build_space",
            "check_request", "choose_picks", "coverage_benefit", "explain_picks", "pick_count",
-           "resolve_request", "run_request", "run_selection", "samples_by_id", "selection_parameters",
+           "mean_spectra", "outside_share", "preprocessed", "recommend_for", "resolve_request",
+           "run_request", "run_selection", "sample_price", "samples_by_id", "selection_parameters",
            "store_run"]
 
 POOLS = ("unreferenced", "outside-coverage")
@@ -291,6 +292,19 @@ def _space_model(request: SelectionRequest, models: dict[str, ModelVersion | Non
     if not with_model:
         return None
     return models[max(with_model, key=lambda c: (cost[c], -request.property_codes.index(c)))]
+
+
+def sample_price(session: Session, actor: Actor, property_codes: list[str]) -> dict[str, Any]:
+    """What one picked sample costs when tested for ``property_codes`` (the send list's
+    charges: the cheapest active method per property, a shared method charged once)."""
+    authorize(actor, Action.VIEW)
+    codes = [c.strip().upper() for c in property_codes if c and c.strip()]
+    if not codes:
+        return {"tests": [], "per_sample": 0.0, "currency": None}
+    charges = _method_charges(session, [get_property(session, c) for c in codes])
+    return {"tests": [{"method": c.code, "cost": c.cost, "properties": c.properties}
+                      for c in charges],
+            "per_sample": float(sum(c.cost for c in charges)), "currency": charges[0].currency}
 
 
 def resolve_request(session: Session, request: SelectionRequest) -> SelectionSetting:
