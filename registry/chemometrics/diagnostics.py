@@ -127,6 +127,14 @@ def jackson_mudholkar_limit(eigenvalues: np.ndarray, confidence: float) -> float
     return float(theta1 * base ** (1.0 / h0))
 
 
+def hotelling_t2_limit(n_samples: int, n_components: int, confidence: float) -> float:
+    """Hotelling T² limit of a *new* observation against n calibration rows and A scores,
+    A(n² − 1)/(n(n − A)) · F(A, n − A) at ``confidence`` (Tracy, Young & Mason, J. Qual.
+    Technol. 24:88, 1992; Jackson, A User's Guide to Principal Components, 1991)."""
+    n, A = int(n_samples), int(n_components)
+    return float(A * (n * n - 1) / (n * (n - A)) * stats.f.ppf(float(confidence), A, n - A))
+
+
 def new_sample_residual_scale(n_samples: int, n_components: int) -> float:
     """Factor from E'E/(n−1) to a new sample's residual covariance:
     (n−1)/(n−A−1)·(1 + (A+1)/n) (see the module notes)."""
@@ -351,7 +359,7 @@ class ApplicabilityDomain:
 
     def _set_limits(self):
         n, A, conf = self.n_samples_, self.n_components_, float(self.confidence)
-        self.t2_limit_ = float(A * (n * n - 1) / (n * (n - A)) * stats.f.ppf(conf, A, n - A))
+        self.t2_limit_ = hotelling_t2_limit(n, A, conf)
         self.q_f_limit_ = float(stats.f.ppf(conf, 1, n - A - 1))
         self.q_residual_scale_ = new_sample_residual_scale(n, A)
         self.q_theta_source_ = THETA_SCALED
