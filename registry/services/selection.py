@@ -61,7 +61,6 @@ from sqlmodel import Session, select
 from ..chemometrics import TrainedModel
 from ..errors import InputError
 from ..lifecycle.permissions import Action
-from ..lifecycle.states import ModelState
 from ..lineage.canonical import content_hash
 from ..plain_json import plain_json
 from ..selection import SelectionSpace, budget_positions, pick_rationale
