@@ -105,8 +105,8 @@ def test_coverage_page_plots_calibration_and_recent_points(ui_reg):
     n_in, n_out = (array(by_name[k]["x"]).size for k in ("recent, inside", "recent, outside"))
     assert (n_in + n_out, n_out) == (cov["counts"]["recent"], cov["counts"]["outside"])
     assert n_in > 0 and cov["counts"]["calibration"] > 0
-    # weekly shares are outside/n of each week, drawn in percent
-    shares = [100 * w["outside"] / w["n"] for w in cov["weekly"]]
+    # weekly shares are outside/n of each week with spectra, drawn in percent
+    shares = [100 * w["outside"] / w["n"] for w in cov["weekly"] if w["n"]]
     np.testing.assert_allclose(array(weekly["data"][0]["y"]), shares)
     # the T²/Q view carries the same spectra, with the model's limits drawn as lines
     res = {t["name"]: t for t in residuals["data"]}
