@@ -168,9 +168,9 @@ def test_qc_page_draws_three_charts_with_limits_from_the_moving_range(ui_reg):
 
 def test_due_page_lists_the_model_in_service(ui_reg):
     at = open_page(signed_in("auditor"), "due")
-    table = frame(at, "days left")
+    table = frame(at, "status")
     assert table["model"].tolist() == [ui_reg.label]
-    assert not table["overdue"].iloc[0]
+    assert table["status"].iloc[0].startswith("due in ")
 
 
 def test_trace_page_shows_the_trace_and_offers_the_html(ui_reg):
