@@ -119,18 +119,21 @@ def recent_predictions(session: Session, actor: Actor, *, limit: int = 50) -> li
 
 
 def qc_charts_available(session: Session, actor: Actor) -> list[dict]:
-    """Every (instrument, material, property) with QC results, and how many."""
+    """Every (instrument, material, property, model version) with QC results, and how many:
+    one chart each, as :func:`registry.services.qc.qc_chart` draws it."""
     authorize(actor, Action.VIEW)
     serials = {i.id: i.serial for i in session.exec(select(Instrument)).all()}
     props = {p.id: p.code for p in session.exec(select(Property)).all()}
-    counts: dict[tuple[int, str, int], int] = {}
-    for inst_id, material, prop_id in session.exec(
-            select(QCResult.instrument_id, QCResult.material, QCResult.property_id)).all():
-        key = (inst_id, material, prop_id)
-        counts[key] = counts.get(key, 0) + 1
-    rows = [{"instrument": serials[i], "material": m, "property": props[p], "n": n}
-            for (i, m, p), n in counts.items()]
-    return sorted(rows, key=lambda r: (r["instrument"], r["material"], r["property"]))
+    labels = {m_id: label for m_id, label in session.exec(select(ModelVersion.id, ModelVersion.label))}
+    counts: dict[tuple[int, str, int, int], int] = {}
+    for key in session.exec(select(QCResult.instrument_id, QCResult.material, QCResult.property_id,
+                                   QCResult.model_version_id)).all():
+        counts[tuple(key)] = counts.get(tuple(key), 0) + 1
+    # newest model version first within each instrument, material and property
+    keyed = sorted(counts.items(), key=lambda kv: (serials[kv[0][0]], kv[0][1], props[kv[0][2]],
+                                                   -kv[0][3]))
+    return [{"instrument": serials[i], "material": m, "property": props[p], "model": labels[v],
+             "n": n} for (i, m, p, v), n in keyed]
 
 
 # --------------------------------------------------------------------------- coverage
