@@ -74,6 +74,15 @@ from scipy import linalg, stats
 from registry.errors import InputError
 
 FLAG_NAMES = ("leverage", "hotelling_t2", "q_residual", "nearest_neighbour", "y_range")
+#: Each check in words, with the :class:`DiagnosticsResult` value and limit it compares
+#: (``y_range`` compares the prediction with [y_min, y_max]).
+CHECK_WORDS = {
+    "leverage": ("leverage", "leverage", "leverage_limit"),
+    "hotelling_t2": ("Hotelling T²", "t2", "t2_limit"),
+    "q_residual": ("Q residual", "q", "q_limit"),
+    "nearest_neighbour": ("nearest-neighbour distance", "nn_distance", "nn_limit"),
+    "y_range": ("prediction outside the calibration range", "y_pred", None),
+}
 RESIDUAL_TESTS = ("q-limit", "f-ratio")
 #: artifacts written before the Q-limit form was recorded named the Q test after its form
 _LEGACY_RESIDUAL_TESTS = {"jackson-mudholkar": "q-limit"}
