@@ -59,6 +59,7 @@ from scipy.spatial import cKDTree
 from sqlmodel import Session, select
 
 from ..chemometrics import TrainedModel
+from ..chemometrics.diagnostics import CHECK_WORDS
 from ..errors import InputError
 from ..lifecycle.permissions import Action
 from ..lineage.canonical import content_hash
@@ -96,16 +97,10 @@ METRICS = ("mahalanobis", "euclidean")
 RECENT_WINDOW_DAYS = 90
 # Spectra loaded per step (one progress tick each).
 _LOAD_BLOCK = 2000
-_HAS_RESULT = ("valid", "suspect")
+_HAS_RESULT = ("valid", "suspect")  # suspect results await review: the sample is not untested
 # The calibration's limit drawn on the score map: the level of the prediction-time checks.
-MAP_LIMIT_CONFIDENCE = 0.99  # suspect results await review: the sample is not untested
+MAP_LIMIT_CONFIDENCE = 0.99
 
-_FLAG_WORDS = {
-    "leverage": ("leverage", "leverage", "leverage_limit"),
-    "hotelling_t2": ("Hotelling T²", "t2", "t2_limit"),
-    "q_residual": ("Q residual", "q", "q_limit"),
-    "nearest_neighbour": ("nearest-neighbour distance", "nn_distance", "nn_limit"),
-}
 _DIAGNOSTIC_KEYS = ("leverage", "leverage_limit", "t2", "t2_limit", "q", "q_limit",
                     "nn_distance", "nn_limit", "y_pred")
 
@@ -650,8 +645,8 @@ def recommend_for(setting: SelectionSetting, pool: CandidatePool) -> Recommendat
 def _flag_words(prop_code: str, record: dict) -> str:
     parts = []
     for flag in record["flags"]:
-        if flag in _FLAG_WORDS:
-            words, value, limit = _FLAG_WORDS[flag]
+        words, value, limit = CHECK_WORDS.get(flag, (None, None, None))
+        if limit is not None:  # the space checks; the prediction range is reported apart
             parts.append(f"{words} {record[value]:.3g} > limit {record[limit]:.3g}")
     return f"outside the {prop_code} model's space ({'; '.join(parts)})" if parts else ""
 
