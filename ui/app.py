@@ -15,18 +15,8 @@ if str(ROOT) not in sys.path:  # pages import ``ui.common`` whatever the working
 import streamlit as st  # noqa: E402
 
 from ui.common import actor, check_registry, sidebar, sign_in_form  # noqa: E402
+from ui.navigation import pages_for  # noqa: E402
 
-PAGES = [
-    ("pages/overview.py", "Overview", ":material/dashboard:"),
-    ("pages/coverage.py", "Coverage", ":material/scatter_plot:"),
-    ("pages/send_list.py", "Send list", ":material/science:"),
-    ("pages/models.py", "Models", ":material/model_training:"),
-    ("pages/qc.py", "QC charts", ":material/monitoring:"),
-    ("pages/due.py", "Due", ":material/event:"),
-    ("pages/trace.py", "Trace", ":material/account_tree:"),
-    ("pages/imports.py", "Import", ":material/upload_file:"),
-    ("pages/admin.py", "Admin", ":material/admin_panel_settings:"),
-]
 #: The framework's deploy button and developer menu are not for the lab's users. Set here,
 #: not only in .streamlit/config.toml, which is read from the working directory alone.
 TOOLBAR_MODE = "minimal"
@@ -48,5 +38,6 @@ if not check_registry():
 if actor() is None:
     nav = st.navigation([st.Page(sign_in, title="Sign in", url_path="sign-in")])
 else:
-    nav = st.navigation([st.Page(path, title=title, icon=icon) for path, title, icon in PAGES])
+    nav = st.navigation([st.Page(path, title=title, icon=icon)
+                         for path, title, icon in pages_for(actor().roles)])
 nav.run()

@@ -189,6 +189,25 @@ def call(fn: Callable[..., Any], *args: Any, with_actor: bool = True,
         return FAILED
 
 
+def kept_call(fn: Callable[..., Any], stamp: Any, *args: Any, **kwargs: Any) -> Any:
+    """:func:`call` of ``fn(session, actor, *args, **kwargs)``, its result kept for the next
+    visits while ``stamp`` (what the result depends on, from a cheap service) is unchanged.
+
+    The same service runs on a miss; a hit only skips it. The key also holds the registry,
+    the function and its arguments; every role may read what is kept this way (``view``).
+    """
+    if stamp is FAILED:
+        return FAILED
+    key = (database_url(), f"{fn.__module__}.{fn.__qualname__}", stamp, args,
+           tuple(sorted(kwargs.items())))
+    return call(_kept, key, fn, args, kwargs)
+
+
+@st.cache_data(max_entries=32, show_spinner=False)
+def _kept(_session, _actor, key: tuple, _fn, _args, _kwargs):
+    return _fn(_session, _actor, *_args, **_kwargs)
+
+
 def check_registry() -> bool:
     """Show a clear message and stop when the database is not a current registry."""
     from registry.services.admin import ensure_known

@@ -80,7 +80,11 @@ class TrainedModel:
         if X_raw.ndim != 2 or X_raw.shape[1] != self.axis.shape[0]:
             raise InputError(f"spectra must have {self.axis.shape[0]} points on the model axis, "
                              f"got shape {X_raw.shape}", field="X")
-        X_pre = self.preprocessor.transform(X_raw)
+        return self.predict_preprocessed(self.preprocessor.transform(X_raw))
+
+    def predict_preprocessed(self, X_pre) -> tuple[np.ndarray, DiagnosticsResult]:
+        """As :meth:`predict`, for spectra already through the model's own recipe (a caller
+        that needs the preprocessed spectra as well does not preprocess twice)."""
         y = self.pls.predict(X_pre)
         return y, self.domain.assess(X_pre, y)
 

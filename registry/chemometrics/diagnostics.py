@@ -74,6 +74,15 @@ from scipy import linalg, stats
 from registry.errors import InputError
 
 FLAG_NAMES = ("leverage", "hotelling_t2", "q_residual", "nearest_neighbour", "y_range")
+#: Each check in words, with the :class:`DiagnosticsResult` value and limit it compares
+#: (``y_range`` compares the prediction with [y_min, y_max]).
+CHECK_WORDS = {
+    "leverage": ("leverage", "leverage", "leverage_limit"),
+    "hotelling_t2": ("Hotelling T²", "t2", "t2_limit"),
+    "q_residual": ("Q residual", "q", "q_limit"),
+    "nearest_neighbour": ("nearest-neighbour distance", "nn_distance", "nn_limit"),
+    "y_range": ("prediction outside the calibration range", "y_pred", None),
+}
 RESIDUAL_TESTS = ("q-limit", "f-ratio")
 #: artifacts written before the Q-limit form was recorded named the Q test after its form
 _LEGACY_RESIDUAL_TESTS = {"jackson-mudholkar": "q-limit"}
@@ -125,6 +134,14 @@ def jackson_mudholkar_limit(eigenvalues: np.ndarray, confidence: float) -> float
     z = stats.norm.ppf(confidence)
     base = z * np.sqrt(2.0 * theta2 * h0 ** 2) / theta1 + 1.0 + theta2 * h0 * (h0 - 1.0) / theta1 ** 2
     return float(theta1 * base ** (1.0 / h0))
+
+
+def hotelling_t2_limit(n_samples: int, n_components: int, confidence: float) -> float:
+    """Hotelling T² limit of a *new* observation against n calibration rows and A scores,
+    A(n² − 1)/(n(n − A)) · F(A, n − A) at ``confidence`` (Tracy, Young & Mason, J. Qual.
+    Technol. 24:88, 1992; Jackson, A User's Guide to Principal Components, 1991)."""
+    n, A = int(n_samples), int(n_components)
+    return float(A * (n * n - 1) / (n * (n - A)) * stats.f.ppf(float(confidence), A, n - A))
 
 
 def new_sample_residual_scale(n_samples: int, n_components: int) -> float:
@@ -351,7 +368,7 @@ class ApplicabilityDomain:
 
     def _set_limits(self):
         n, A, conf = self.n_samples_, self.n_components_, float(self.confidence)
-        self.t2_limit_ = float(A * (n * n - 1) / (n * (n - A)) * stats.f.ppf(conf, A, n - A))
+        self.t2_limit_ = hotelling_t2_limit(n, A, conf)
         self.q_f_limit_ = float(stats.f.ppf(conf, 1, n - A - 1))
         self.q_residual_scale_ = new_sample_residual_scale(n, A)
         self.q_theta_source_ = THETA_SCALED

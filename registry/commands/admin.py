@@ -45,6 +45,10 @@ def status(db: DbOpt = None, fmt: FormatOpt = Output.text) -> None:
         lines = [f"database: {doc['url']}", f"revision: {doc['revision'] or '(none: run specledger init)'}"
                  + ("" if doc["up_to_date"] else f"  (head is {doc['head']})")]
         lines += [f"  {k:24s} {v}" for k, v in doc["counts"].items()]
+        if doc["in_service"]:
+            lines.append(f"in service: {doc['in_service']['active_deployments']} active "
+                         f"deployments, {doc['in_service']['versions_in_service']} versions "
+                         "approved or active")
         return "\n".join(lines)
     emit(fmt, doc, text)
 

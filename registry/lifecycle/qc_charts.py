@@ -85,6 +85,26 @@ class Rule(StrEnum):
     MR_ABOVE_UCL = "mr_above_ucl"
 
 
+def rule_name(rule: Rule | str, run_length: int = DEFAULT_RUN_LENGTH) -> str:
+    """The rule's own short name, as the run rules are stated (module notes): "1 beyond
+    3σ", "2 of 3 beyond 2σ", "4 of 5 beyond 1σ", "9 in a row on one side", ..."""
+    return {
+        Rule.BEYOND_3_SIGMA: "1 beyond 3σ",
+        Rule.TWO_OF_THREE_BEYOND_2_SIGMA: "2 of 3 beyond 2σ",
+        Rule.FOUR_OF_FIVE_BEYOND_1_SIGMA: "4 of 5 beyond 1σ",
+        Rule.RUN_ON_ONE_SIDE: f"{int(run_length)} in a row on one side",
+        Rule.EWMA_BEYOND_LIMITS: "EWMA beyond its limits",
+        Rule.MR_ABOVE_UCL: "moving range above its limit",
+    }[Rule(rule)]
+
+
+#: The chart each rule reads: the individuals chart (rules 1–4), the EWMA, the moving range.
+RULE_CHART = {Rule.BEYOND_3_SIGMA: "individuals", Rule.TWO_OF_THREE_BEYOND_2_SIGMA: "individuals",
+              Rule.FOUR_OF_FIVE_BEYOND_1_SIGMA: "individuals",
+              Rule.RUN_ON_ONE_SIDE: "individuals", Rule.EWMA_BEYOND_LIMITS: "ewma",
+              Rule.MR_ABOVE_UCL: "moving_range"}
+
+
 @dataclass(frozen=True)
 class Signal:
     """One out-of-control signal: 0-based point ``index``, the ``rule``, and words."""
@@ -378,7 +398,9 @@ class QCReport:
             "ewma_lcl": clean(ew.lcl),
             "lam": ew.lam,
             "run_length": self.run_length,
-            "signals": [{"index": s.index, "rule": s.rule.value, "message": s.message}
+            "signals": [{"index": s.index, "rule": s.rule.value,
+                         "name": rule_name(s.rule, self.run_length),
+                         "chart": RULE_CHART[s.rule], "message": s.message}
                         for s in self.signals],
         }
 

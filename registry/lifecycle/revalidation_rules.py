@@ -52,10 +52,12 @@ class TriggerKind(StrEnum):
 
 @dataclass(frozen=True)
 class Trigger:
-    """An open revalidation trigger; ``detail`` says what happened, for the reasons list."""
+    """An open revalidation trigger; ``detail`` says what happened, for the reasons list;
+    ``raised_at`` (UTC) is when, so an overdue version can say for how long."""
 
     kind: TriggerKind
     detail: str = ""
+    raised_at: datetime | None = None
 
 
 @dataclass(frozen=True)
@@ -74,12 +76,21 @@ class DueStatus:
         True once ``now`` has reached ``due_at``.
     reasons : list of str
         Why it is due (empty when it is not yet due).
+    scheduled_at : datetime or None
+        The scheduled date alone (``interval_days`` after the last validation), triggers
+        aside: where the version sits on a timeline of due dates.
+    overdue_since : datetime or None
+        While overdue, the instant it became due: the scheduled date if that has passed,
+        or the earliest open trigger's raising, whichever came first (``now`` for a
+        trigger whose time is not known). None when not overdue.
     """
 
     due_at: datetime
     days_left: int
     overdue: bool
     reasons: list[str] = field(default_factory=list)
+    scheduled_at: datetime | None = None
+    overdue_since: datetime | None = None
 
 
 def _require_aware(dt: datetime, name: str) -> datetime:
@@ -102,9 +113,12 @@ def due_date(last_validated_at: datetime, interval_days: int) -> datetime:
 
 
 def _as_trigger(trigger: Trigger | TriggerKind | str) -> Trigger:
-    kind, detail = (trigger.kind, trigger.detail) if isinstance(trigger, Trigger) else (trigger, "")
+    kind, detail, raised_at = ((trigger.kind, trigger.detail, trigger.raised_at)
+                               if isinstance(trigger, Trigger) else (trigger, "", None))
+    if raised_at is not None:
+        raised_at = _require_aware(raised_at, "raised_at")
     try:
-        return Trigger(TriggerKind(kind), detail)
+        return Trigger(TriggerKind(kind), detail, raised_at)
     except ValueError:
         raise InputError(f"unknown revalidation trigger {kind!r}; known: "
                          + ", ".join(k.value for k in TriggerKind), field="triggers") from None
@@ -138,8 +152,14 @@ def due_status(now: datetime, due_at: datetime,
     if open_triggers:
         effective = min(scheduled, now)
     days_left = (effective - now) // _DAY  # floor division of timedeltas: exact integer
-    return DueStatus(due_at=effective, days_left=days_left, overdue=now >= effective,
-                     reasons=reasons)
+    overdue = now >= effective
+    since = None
+    if overdue:  # from the earliest cause: the passed schedule or a trigger's raising
+        causes = [scheduled] if now >= scheduled else []
+        causes += [min(t.raised_at or now, now) for t in open_triggers]
+        since = min(causes)
+    return DueStatus(due_at=effective, days_left=days_left, overdue=overdue, reasons=reasons,
+                     scheduled_at=scheduled, overdue_since=since)
 
 
 def cleared_by_revalidation(kind: TriggerKind | str) -> bool:

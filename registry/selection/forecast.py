@@ -59,7 +59,8 @@ EXPONENT_BOUNDS = (0.05, 4.0)
 #: An improvement below this share of the present error is not worth a test
 #: campaign (a choice, stated with the answer).
 WORTHWHILE_GAIN = 0.05
-_DEFAULT_STEPS = (5, 10, 20, 40, 80, 160)
+#: Numbers of added picks forecast when none are given.
+DEFAULT_STEPS = (5, 10, 20, 40, 80, 160)
 
 
 # --------------------------------------------------------------- the law
@@ -463,8 +464,8 @@ def forecast_error(X_cal, y_cal, X_pool=None, *, n_components: int | None = None
         boot.append(fit_power_law(curve.sizes, curve.row_mse[rows].mean(axis=0),
                                   weights=weights, floor_var=floor_var))
     if steps is None:
-        steps = [s for s in _DEFAULT_STEPS if n_pool is None or s <= n_pool]
-        if n_pool is not None and n_pool not in steps and n_pool < _DEFAULT_STEPS[-1]:
+        steps = [s for s in DEFAULT_STEPS if n_pool is None or s <= n_pool]
+        if n_pool is not None and n_pool not in steps and n_pool < DEFAULT_STEPS[-1]:
             steps.append(n_pool)
     steps = sorted({check_count(int(s), "steps") for s in steps})
     if n_pool is not None and steps and steps[-1] > n_pool:

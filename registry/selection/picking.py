@@ -15,18 +15,25 @@ from typing import Callable
 import numpy as np
 from scipy.spatial import cKDTree
 
+from registry.chemometrics.diagnostics import hotelling_t2_limit
 from registry.errors import InputError
 from registry.selection.budget import coverage_summary
 from registry.selection.d_optimal import d_optimal
 from registry.selection.duplex import duplex
 from registry.selection.kennard_stone import kennard_stone
+from registry.selection.spxy import spxy
 
 #: ``kennard-stone``: maximin augment of the calibration rows (Kennard & Stone 1969).
 #: ``d-optimal``: Fedorov exchange maximising det(ZᵀZ), Z = [1, scores], calibration rows
 #: fixed (Ferré & Rius, Trends Anal. Chem. 15:424, 1996, from memory). ``duplex``: Snee
 #: (1977) on the pool alone; the picks form a new calibration set and an independent
-#: validation set (about half each); the calibration rows do not steer it.
-METHODS = ("kennard-stone", "d-optimal", "duplex")
+#: validation set (about half each); the calibration rows do not steer it. ``spxy``:
+#: Kennard–Stone augment on the joint distance of scores and values (Galvão et al.,
+#: Talanta 67:736, 2005): the calibration rows' reference values and the current model's
+#: predictions for the pool; Euclidean on the scores, as the paper uses the spectra.
+METHODS = ("kennard-stone", "d-optimal", "duplex", "spxy")
+#: Methods that need values (reference values of the calibration rows, predictions of the pool).
+NEEDS_VALUES = ("spxy",)
 CALIBRATION, VALIDATION = "calibration", "validation"
 #: Duplex needs two rows for each of its two sets.
 DUPLEX_MIN_PICKS = 4
@@ -60,7 +67,7 @@ def _weights(eigenvalues, n_columns: int) -> np.ndarray:
 
 def rank_pool(T_cal, T_pool, k: int, method: str, *, eigenvalues=None,
               random_state: int | None = None,
-              progress: Callable[[int], None] | None = None) -> Picks:
+              progress: Callable[[int], None] | None = None, y_cal=None, y_pool=None) -> Picks:
     """Choose ``k`` rows of ``T_pool`` with ``method`` (see :data:`METHODS`).
 
     Parameters
@@ -79,6 +86,9 @@ def rank_pool(T_cal, T_pool, k: int, method: str, *, eigenvalues=None,
         Seed of the D-optimal random starts.
     progress : callable, optional
         ``progress(picks_done)`` during Kennard–Stone.
+    y_cal, y_pool : arrays of shape (n_cal,) and (n,), optional
+        ``spxy`` only: reference values of the calibration rows and predicted values
+        of the candidates.
     """
     if method not in METHODS:
         raise InputError(f"unknown method {method!r}; use one of {', '.join(METHODS)}",
@@ -91,6 +101,13 @@ def rank_pool(T_cal, T_pool, k: int, method: str, *, eigenvalues=None,
     if method == "kennard-stone":
         rows = kennard_stone(np.vstack([T_cal, T_pool]), k, already_selected=fixed,
                              metric=metric, eigenvalues=eigenvalues, progress=progress) - n_cal
+        return Picks(np.asarray(rows, dtype=np.int64), (CALIBRATION,) * k, method)
+    if method == "spxy":
+        if y_cal is None or y_pool is None:
+            raise InputError("spxy needs the calibration rows' reference values and the pool's "
+                             "predicted values", field="method")
+        y = np.concatenate([np.ravel(y_cal), np.ravel(y_pool)])
+        rows = spxy(np.vstack([T_cal, T_pool]), y, k, already_selected=fixed) - n_cal
         return Picks(np.asarray(rows, dtype=np.int64), (CALIBRATION,) * k, method)
     if method == "d-optimal":
         res = d_optimal(np.vstack([T_cal, T_pool]), k, already_selected=fixed,
@@ -249,3 +266,36 @@ def brought_inside(Z_recent, nn_only_outside, Z_picks, limit: float, *, eigenval
     w = _weights(eigenvalues, a)
     dist = cKDTree(Z_picks * w).query(Z_recent * w)[0]
     return reachable & (dist <= float(limit))
+
+
+def t2_ellipse(T_cal, confidence: float = 0.99, n_points: int = 121) -> np.ndarray | None:
+    """The calibration rows' Hotelling T² limit drawn in the plane of two scores.
+
+    The ellipse (t − μ)ᵀ S⁻¹ (t − μ) = T²_lim, with μ and S the mean and covariance of
+    the calibration rows' two scores and T²_lim the limit of a new observation
+    (:func:`registry.chemometrics.diagnostics.hotelling_t2_limit`, A = 2). A candidate
+    outside it is further from the calibration in these two scores than the limit
+    allows; inside, it may still differ in the scores not drawn.
+
+    Parameters
+    ----------
+    T_cal : array of shape (n, 2)
+    confidence : float
+    n_points : int
+
+    Returns
+    -------
+    ndarray of shape (n_points, 2), or None with fewer than 4 rows or a singular S.
+    """
+    T = np.asarray(T_cal, dtype=np.float64)
+    if T.ndim != 2 or T.shape[1] != 2 or T.shape[0] < 4:
+        return None
+    S = np.cov(T, rowvar=False)
+    try:
+        L = np.linalg.cholesky(S)
+    except np.linalg.LinAlgError:
+        return None
+    theta = np.linspace(0.0, 2 * np.pi, n_points)
+    circle = np.column_stack([np.cos(theta), np.sin(theta)])
+    radius = np.sqrt(hotelling_t2_limit(T.shape[0], 2, confidence))
+    return T.mean(axis=0) + radius * circle @ L.T

@@ -172,8 +172,10 @@ def recommend_method(outside_share: float, n_existing: int, *,
     if n_existing == 0 or not references_known:
         return Recommendation(
             "ks-augment",
-            "nothing to build on yet: Kennard–Stone spreads the picks over the pool's "
-            "spectral space (no method beat random picks here, KS was never worse)",
+            ("nothing to build on yet" if n_existing == 0 else
+             f"{n_existing} calibration samples but no model predicting the pool yet")
+            + ": Kennard–Stone spreads the picks over the spectral space (no method beat "
+            "random picks here, KS was never worse)",
             "new grade", _saved("new grade", "ks-augment"))
     if n_existing < MIN_EXISTING_FOR_VALUES:
         return Recommendation(

@@ -9,6 +9,7 @@ from typing import Any
 
 import numpy as np
 from sqlalchemy import func
+from sqlalchemy.orm import object_session
 from sqlmodel import Session, select
 
 from ..catalog import precision_at
@@ -71,8 +72,6 @@ def load_trained(mv: ModelVersion) -> TrainedModel:
     property, the family and what to do.
     """
     if mv.family != ModelFamily.PLS:
-        from sqlalchemy.orm import object_session
-
         session = object_session(mv)
         prop = session.get(Property, mv.property_id) if session is not None else None
         grade = (session.get(Grade, mv.grade_id)
@@ -82,9 +81,8 @@ def load_trained(mv: ModelVersion) -> TrainedModel:
         raise InputError(
             f"the model of {code}{on} is {mv.label}, a {mv.family.value} model "
             f"({DESCRIPTIONS[mv.family]}); selection and the coverage views work in a PLS "
-            f"model's score space. Train a PLS version of {code} (model train --family pls) "
-            f"and name it with --model, or select and map by another property with a PLS "
-            "model", field="--model")
+            f"model's score space. Train a PLS version of {code} and choose it as the model, "
+            "or select and map by another property that has a PLS model", field="model")
     return TrainedModel.from_bytes(mv.artifact, mv.artifact_sha256)
 
 

@@ -13,7 +13,7 @@ time in the zone of every site where the version is deployed.
 from __future__ import annotations
 
 import math
-from datetime import datetime
+from datetime import datetime, timedelta
 from typing import Any
 
 from sqlmodel import Session, select
@@ -30,6 +30,8 @@ from ..storage.types import as_utc, utcnow
 from .admin import get_grade, get_property
 from .context import Actor, audit, authorize
 from .models import get_model
+
+_DAY = timedelta(days=1)
 
 
 # --------------------------------------------------------------------------- due list
@@ -58,7 +60,11 @@ def due_list(session: Session, actor: Actor, within_days: int | None = None,
     list of dict
         ``label, property, grade, state, due_at`` (UTC), ``due_at_local``
         (one entry per deployment site: site, time zone, local time),
-        ``days_left, overdue, reasons, last_validated_at, interval_days``.
+        ``days_left, overdue, reasons, last_validated_at, interval_days``,
+        ``scheduled_at`` (the scheduled date alone, triggers aside), ``overdue_since``
+        (when it became due: the passed scheduled date or the earliest open trigger;
+        None unless overdue) and ``overdue_days`` (days since then, fractional; None
+        unless overdue).
     """
     authorize(actor, Action.VIEW)
     if within_days is not None and (isinstance(within_days, bool) or int(within_days) != within_days
@@ -84,7 +90,10 @@ def due_list(session: Session, actor: Actor, within_days: int | None = None,
                      "due_at": status.due_at, "due_at_local": local,
                      "days_left": status.days_left, "overdue": status.overdue,
                      "reasons": list(status.reasons), "last_validated_at": mv.last_validated_at,
-                     "interval_days": policy_for(session, mv).interval_days})
+                     "interval_days": policy_for(session, mv).interval_days,
+                     "scheduled_at": status.scheduled_at, "overdue_since": status.overdue_since,
+                     "overdue_days": ((now - status.overdue_since) / _DAY
+                                      if status.overdue_since is not None else None)})
     rows.sort(key=lambda r: (not r["overdue"], r["due_at"], r["label"]))
     return rows
 

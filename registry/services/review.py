@@ -119,17 +119,18 @@ def _sample_names(session: Session, ids) -> dict[int, str]:
                              .where(Sample.id.in_(list(set(ids))))).all())
 
 
-def _method_precision(session: Session, prop_id: int, level: float | None) -> dict[str, Any]:
-    """The active reference method's r, R and σ_R = R/2.77 (ISO 5725-6) at ``level``."""
+def method_precision(session: Session, prop_id: int, level: float | None) -> dict[str, Any]:
+    """The active reference method's r, R, σ_r = r/2.77 and σ_R = R/2.77 (ISO 5725-6)
+    at ``level``."""
     m = session.exec(select(ReferenceMethod).where(ReferenceMethod.property_id == prop_id,
                                                    ReferenceMethod.active == True)  # noqa: E712
                      .order_by(ReferenceMethod.id)).first()
     if m is None or level is None:
         return {"method": m.code if m else None, "level": level, "r": None, "R": None,
-                "sigma_R": None}
+                "sigma_r": None, "sigma_R": None}
     r, R = precision_at(m.repeatability, level), precision_at(m.reproducibility, level)
     return {"method": m.code, "level": level, "r": r, "R": R,
-            "sigma_R": sd_from_limit(R) if R else None}
+            "sigma_r": sd_from_limit(r) if r else None, "sigma_R": sd_from_limit(R) if R else None}
 
 
 def _cross_validated(session: Session, mv: ModelVersion, model: FittedModel,
@@ -316,7 +317,7 @@ def model_evidence(session: Session, actor: Actor, label: str) -> dict[str, Any]
                          "rule": curve.get("selection_rule"), "method": curve.get("method"),
                          "n_folds": curve.get("n_folds")},
             "cross_validation": cv, "validation_set": val,
-            "precision": _method_precision(session, mv.property_id, level),
+            "precision": method_precision(session, mv.property_id, level),
             "latest_validation": latest, "family_evidence": family,
             "inputs": _input_versions(session, mv, model, family.get("input_models") or {}),
             "spectra": _evidence_spectra(session, mv, cs, val), "warnings": warnings}

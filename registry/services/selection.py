@@ -31,9 +31,16 @@ action; it is made of named steps, each usable (and tested) on its own:
 
 The current model of a property and grade is
 :func:`registry.services.models.current_model`; without one the space is plain PCA
-on the default recipe. Several properties: the first requested property that has
-a current model defines the space; every current model's flags are reported and,
-with ``outside-coverage``, a sample flagged by any of them is kept.
+on the default recipe. Several properties: the space is that of the current model of
+``space_property`` when given, else of the property whose test costs most among those
+with a current model (the costliest test is the one worth steering); every current
+model's flags are reported and, with ``outside-coverage``, a sample flagged by any of
+them is kept.
+
+Without a method the run takes the one :func:`recommend_for` proposes for the
+situation it sees (:func:`registry.selection.recommend.recommend_method`: share of the
+pool outside the space model, size of the calibration reference, whether its
+reference values are known); the result says which, and why, in one line.
 
 Every run is stored with its parameters and a content hash of the pool and its
 picks, and is deterministic: candidates are ordered by sample id and the
@@ -52,14 +59,15 @@ from scipy.spatial import cKDTree
 from sqlmodel import Session, select
 
 from ..chemometrics import TrainedModel
+from ..chemometrics.diagnostics import CHECK_WORDS
 from ..errors import InputError
 from ..lifecycle.permissions import Action
-from ..lifecycle.states import ModelState
 from ..lineage.canonical import content_hash
 from ..plain_json import plain_json
 from ..selection import SelectionSpace, budget_positions, pick_rationale
-from ..selection.picking import (DUPLEX_MIN_PICKS, METHODS, Picks, brought_inside,
-                                 nearest_before, rank_pool)
+from ..selection.picking import (DUPLEX_MIN_PICKS, METHODS, NEEDS_VALUES, Picks, brought_inside,
+                                 nearest_before, rank_pool, t2_ellipse)
+from ..selection.recommend import Recommendation, recommend_method
 from ..spectra.axes import on_axis
 from ..spectra.preprocessing import Recipe
 from ..storage.bulk import in_blocks
@@ -78,7 +86,8 @@ from .views import recent_production
 __all__ = ["METHODS", "METRICS", "POOLS", "SEND_LIST_COLUMNS", "CandidatePool", "ScoreSpace",
            "SelectionRequest", "SelectionResult", "SelectionSetting", "build_pool", "build_space",
            "check_request", "choose_picks", "coverage_benefit", "explain_picks", "pick_count",
-           "resolve_request", "run_request", "run_selection", "samples_by_id", "selection_parameters",
+           "mean_spectra", "outside_share", "preprocessed", "recommend_for", "resolve_request",
+           "run_request", "run_selection", "sample_price", "samples_by_id", "selection_parameters",
            "store_run"]
 
 POOLS = ("unreferenced", "outside-coverage")
@@ -89,20 +98,19 @@ RECENT_WINDOW_DAYS = 90
 # Spectra loaded per step (one progress tick each).
 _LOAD_BLOCK = 2000
 _HAS_RESULT = ("valid", "suspect")  # suspect results await review: the sample is not untested
+# The calibration's limit drawn on the score map: the level of the prediction-time checks.
+MAP_LIMIT_CONFIDENCE = 0.99
 
-_FLAG_WORDS = {
-    "leverage": ("leverage", "leverage", "leverage_limit"),
-    "hotelling_t2": ("Hotelling T²", "t2", "t2_limit"),
-    "q_residual": ("Q residual", "q", "q_limit"),
-    "nearest_neighbour": ("nearest-neighbour distance", "nn_distance", "nn_limit"),
-}
 _DIAGNOSTIC_KEYS = ("leverage", "leverage_limit", "t2", "t2_limit", "q", "q_limit",
                     "nn_distance", "nn_limit", "y_pred")
 
 Progress = Callable[[str, int, int], None]
+# The library's strategy names (registry.selection.strategies) a recommendation can give,
+# as this service's methods.
+_SERVICE_METHOD = {"ks-augment": "kennard-stone", "spxy": "spxy"}
 
 SEND_LIST_COLUMNS = ("rank", "sample_id", "batch", "source", "use", "tests", "cost",
-                     "cumulative_cost", "reason", "distance", "nearest_sample", "leverage",
+                     "cumulative_cost", "currency", "reason", "distance", "nearest_sample", "leverage",
                      "log_det_gain", "flags")
 
 
@@ -117,7 +125,7 @@ class SelectionRequest:
 
     property_codes: tuple[str, ...]
     grade: str
-    method: str
+    method: str | None
     n: int | None = None
     budget: float | None = None
     pool: str = "unreferenced"
@@ -128,21 +136,26 @@ class SelectionRequest:
     explained_variance: float = 0.99
     n_components: int | str | None = None
     metric: str = "mahalanobis"
+    space_property: str | None = None
 
 
-def check_request(*, property_codes: list[str], grade: str, method: str, n: int | None = None,
+def check_request(*, property_codes: list[str], grade: str, method: str | None = None,
+                  n: int | None = None,
                   budget: float | None = None, pool: str = "unreferenced",
                   since: datetime | None = None, until: datetime | None = None,
                   site: str | None = None, recipe: list[dict] | None = None,
                   explained_variance: float = 0.99, n_components: int | str | None = None,
-                  metric: str = "mahalanobis") -> SelectionRequest:
-    """Check every parameter that needs no database; InputError names the option."""
+                  metric: str = "mahalanobis",
+                  space_property: str | None = None) -> SelectionRequest:
+    """Check every parameter that needs no database; InputError names the option.
+
+    ``method`` None means the recommended one (:func:`recommend_for`)."""
     codes = [c.strip().upper() for c in (property_codes or []) if c and c.strip()]
     if not codes:
         raise InputError("name at least one property to test", field="--property")
     if len(set(codes)) != len(codes):
         raise InputError("a property is named twice", field="--property")
-    if method not in METHODS:
+    if method is not None and method not in METHODS:
         raise InputError(f"unknown method {method!r}; use one of {', '.join(METHODS)}",
                          field="--method")
     if (n is None) == (budget is None):
@@ -169,12 +182,19 @@ def check_request(*, property_codes: list[str], grade: str, method: str, n: int 
     since, until = as_utc(since), as_utc(until)
     if since is not None and until is not None and since >= until:
         raise InputError("the start date must be before the end date", field="--since")
+    if space_property is not None:
+        space_property = space_property.strip().upper()
+        if space_property not in codes:
+            raise InputError(f"the model space must be one of the properties tested "
+                             f"({', '.join(codes)}), got {space_property!r}",
+                             field="--space-property")
     return SelectionRequest(
         property_codes=tuple(codes), grade=grade, method=method,
         n=int(n) if n is not None else None, budget=float(budget) if budget is not None else None,
         pool=pool, since=since, until=until, site=site,
         recipe=Recipe.from_json(recipe).to_json() if recipe is not None else None,
-        explained_variance=explained_variance, n_components=n_components, metric=metric)
+        explained_variance=explained_variance, n_components=n_components, metric=metric,
+        space_property=space_property)
 
 
 # --------------------------------------------------------------------------- 2. the setting
@@ -214,12 +234,16 @@ class SelectionSetting:
         return " + ".join(f"{c.code} ({'/'.join(c.properties)})" for c in self.charges)
 
     @property
-    def space_trained(self) -> TrainedModel | None:
-        """The trained form of :attr:`space_model` (its recipe and axis shape the space)."""
+    def space_code(self) -> str | None:
+        """The property whose current model gives the space (None without one)."""
         if self.space_model is None:
             return None
-        code = next(c for c in self.request.property_codes if self.models[c] is self.space_model)
-        return self.trained[code]
+        return next(c for c in self.request.property_codes if self.models[c] is self.space_model)
+
+    @property
+    def space_trained(self) -> TrainedModel | None:
+        """The trained form of :attr:`space_model` (its recipe and axis shape the space)."""
+        return None if self.space_model is None else self.trained[self.space_code]
 
 
 def _method_charges(session: Session, props: list[Property]) -> list[MethodCharge]:
@@ -246,6 +270,37 @@ def _method_charges(session: Session, props: list[Property]) -> list[MethodCharg
     return list(charges.values())
 
 
+def _space_model(request: SelectionRequest, models: dict[str, ModelVersion | None],
+                 charges: list[MethodCharge]) -> ModelVersion | None:
+    """The model whose space the picks are made in: ``space_property``'s, else that of the
+    costliest test among the properties with a current model (ties: request order)."""
+    if request.space_property is not None:
+        mv = models[request.space_property]
+        if mv is None:
+            raise InputError(f"{request.space_property} has no current model on grade "
+                             f"{request.grade}, so its model space cannot be used",
+                             field="--space-property")
+        return mv
+    cost = {p: c.cost for c in charges for p in c.properties}
+    with_model = [c for c in request.property_codes if models[c] is not None]
+    if not with_model:
+        return None
+    return models[max(with_model, key=lambda c: (cost[c], -request.property_codes.index(c)))]
+
+
+def sample_price(session: Session, actor: Actor, property_codes: list[str]) -> dict[str, Any]:
+    """What one picked sample costs when tested for ``property_codes`` (the send list's
+    charges: the cheapest active method per property, a shared method charged once)."""
+    authorize(actor, Action.VIEW)
+    codes = [c.strip().upper() for c in property_codes if c and c.strip()]
+    if not codes:
+        return {"tests": [], "per_sample": 0.0, "currency": None}
+    charges = _method_charges(session, [get_property(session, c) for c in codes])
+    return {"tests": [{"method": c.code, "cost": c.cost, "properties": c.properties}
+                      for c in charges],
+            "per_sample": float(sum(c.cost for c in charges)), "currency": charges[0].currency}
+
+
 def resolve_request(session: Session, request: SelectionRequest) -> SelectionSetting:
     """Look up the properties, grade, site, method prices and current models of ``request``."""
     props = [get_property(session, c) for c in request.property_codes]
@@ -253,7 +308,7 @@ def resolve_request(session: Session, request: SelectionRequest) -> SelectionSet
     site = get_site(session, request.site) if request.site else None
     charges = _method_charges(session, props)
     models = {p.code: current_model(session, p, grade) for p in props}
-    space_model = next((models[c] for c in request.property_codes if models[c] is not None), None)
+    space_model = _space_model(request, models, charges)
     setting = SelectionSetting(request=request, properties=props, grade=grade, site=site,
                                charges=charges, models=models, trained={},
                                space_model=space_model)
@@ -289,6 +344,8 @@ class CandidatePool:
     positions in it that form the pool (all of them, or those outside a current
     model's space). ``X_universe``/``X_reference`` are on ``axis``;
     ``diagnostics[code][i]`` is the current ``code`` model's record for ``universe[i]``.
+    ``y_reference`` are the space model's frozen reference values of the calibration
+    reference (None without a model).
     """
 
     universe: list[int]
@@ -304,6 +361,7 @@ class CandidatePool:
     samples: dict[int, Sample]
     sha256: str
     reference_sha256: str
+    y_reference: np.ndarray | None = None
 
     @property
     def ids(self) -> list[int]:
@@ -356,8 +414,9 @@ def _waiting_samples(session: Session, codes: tuple[str, ...], ignore_run_id: in
 
 
 def _reference(session: Session, setting: SelectionSetting
-               ) -> tuple[list[int], dict[int, list[SpectrumRef]], str]:
-    """Calibration reference: (sample ids, their spectra, description)."""
+               ) -> tuple[list[int], dict[int, list[SpectrumRef]], str, dict[int, float] | None]:
+    """Calibration reference: (sample ids, their spectra, description, the space model's
+    frozen reference value per sample or None without a model)."""
     model, props = setting.space_model, setting.properties
     if model is not None:
         members = session.exec(select(CalibrationMember).where(
@@ -365,13 +424,14 @@ def _reference(session: Session, setting: SelectionSetting
             CalibrationMember.role == "cal").order_by(CalibrationMember.sample_id)).all()
         ids = [m.sample_id for m in members]
         frozen: dict[int, set[int]] | None = {m.sample_id: set(m.spectrum_ids) for m in members}
+        values: dict[int, float] | None = {m.sample_id: m.reference_value for m in members}
         text = f"calibration members of model {model.label}"
     else:
         grade_samples = session.exec(select(Sample.id).where(Sample.grade_id == setting.grade.id)).all()
         referenced: set[int] = set()
         for prop in props:
             referenced |= set(calibration_values(session, grade_samples, prop.id))
-        ids, frozen = sorted(referenced), None
+        ids, frozen, values = sorted(referenced), None, None
         text = (f"samples of grade {setting.grade.code} with a valid "
                 f"{'/'.join(p.code for p in props)} value")
     spectra: dict[int, list[SpectrumRef]] = {}
@@ -383,7 +443,7 @@ def _reference(session: Session, setting: SelectionSetting
                 spectra.setdefault(sample_id, []).append(SpectrumRef(sid, axis_id, digest))
     for refs in spectra.values():
         refs.sort(key=lambda r: r.id)
-    return [s for s in ids if s in spectra], spectra, text
+    return [s for s in ids if s in spectra], spectra, text, values
 
 
 def _space_axis(session: Session, setting: SelectionSetting, refs: list[SpectrumRef]) -> np.ndarray:
@@ -398,12 +458,12 @@ def _space_axis(session: Session, setting: SelectionSetting, refs: list[Spectrum
     return axis_values(session.get(SpectralAxis, axis_id))
 
 
-def _mean_spectra(session: Session, spectra: list[list[SpectrumRef]], axis: np.ndarray,
-                  progress: Progress | None, label: str) -> np.ndarray:
-    """One row per sample: the mean of its spectra, on ``axis``."""
+def mean_spectra(session: Session, spectra: list[list[int]], axis: np.ndarray,
+                 progress: Progress | None = None, label: str = "loading spectra") -> np.ndarray:
+    """One row per sample (a list of its spectrum ids): the mean of its spectra, on ``axis``."""
     if not spectra:
         return np.empty((0, axis.size))
-    flat = [r.id for refs in spectra for r in refs]
+    flat = [sid for ids in spectra for sid in ids]
     owner = np.repeat(np.arange(len(spectra)), [len(refs) for refs in spectra])
     sums = np.zeros((len(spectra), axis.size))
     for start in range(0, len(flat), _LOAD_BLOCK):
@@ -439,12 +499,12 @@ def build_pool(session: Session, setting: SelectionSetting, *, ignore_run_id: in
                          f"{' at ' + site.name if site else ''} already has a "
                          f"{'/'.join(codes)} result or is waiting in an open selection run",
                          field="--pool")
-    ref_ids, ref_spectra, ref_text = _reference(session, setting)
+    ref_ids, ref_spectra, ref_text, ref_values = _reference(session, setting)
     axis = _space_axis(session, setting, [r for refs in (*spectra.values(), *ref_spectra.values())
                                           for r in refs])
-    X_uni = _mean_spectra(session, [spectra[s] for s in universe], axis, progress,
+    X_uni = mean_spectra(session, [[r.id for r in spectra[s]] for s in universe], axis, progress,
                           "loading candidate spectra")
-    X_ref = _mean_spectra(session, [ref_spectra[s] for s in ref_ids], axis, progress,
+    X_ref = mean_spectra(session, [[r.id for r in ref_spectra[s]] for s in ref_ids], axis, progress,
                           "loading calibration spectra")
     diagnostics = model_view(setting.trained, X_uni, axis)
     if req.pool == "outside-coverage":
@@ -466,7 +526,9 @@ def build_pool(session: Session, setting: SelectionSetting, *, ignore_run_id: in
         X_universe=X_uni, X_reference=X_ref, diagnostics=diagnostics,
         samples={s.id: s for s in samples_by_id(session, pool_ids + ref_ids)},
         sha256=content_hash([[s, [r.sha256 for r in spectra[s]]] for s in pool_ids]),
-        reference_sha256=content_hash([[s, [r.sha256 for r in ref_spectra[s]]] for s in ref_ids]))
+        reference_sha256=content_hash([[s, [r.sha256 for r in ref_spectra[s]]] for s in ref_ids]),
+        y_reference=(np.array([ref_values[s] for s in ref_ids], dtype=np.float64)
+                     if ref_values is not None else None))
 
 
 def samples_by_id(session: Session, ids: list[int]) -> list[Sample]:
@@ -493,17 +555,21 @@ class ScoreSpace:
     eigenvalues: np.ndarray | None
 
 
-def build_space(setting: SelectionSetting, pool: CandidatePool) -> ScoreSpace:
-    """Preprocess by the current model's own fitted recipe (or the requested/default one)
-    and fit the PCA space; no database access."""
+def preprocessed(setting: SelectionSetting, pool: CandidatePool) -> tuple[list[dict], np.ndarray]:
+    """(recipe, calibration reference + untested candidates preprocessed by it): the current
+    model's own fitted recipe, or the requested/default one fitted on these rows."""
     req, trained = setting.request, setting.space_trained
     X_all = np.vstack([pool.X_reference, pool.X_universe])
     if req.recipe is None and trained is not None:
-        recipe = trained.recipe
-        X_pre = trained.preprocessor.transform(X_all)
-    else:
-        recipe = req.recipe if req.recipe is not None else DEFAULT_RECIPE
-        X_pre = Recipe.from_json(recipe).build(pool.axis).fit_transform(X_all)
+        return trained.recipe, trained.preprocessor.transform(X_all)
+    recipe = req.recipe if req.recipe is not None else DEFAULT_RECIPE
+    return recipe, Recipe.from_json(recipe).build(pool.axis).fit_transform(X_all)
+
+
+def build_space(setting: SelectionSetting, pool: CandidatePool) -> ScoreSpace:
+    """Preprocess (:func:`preprocessed`) and fit the PCA space; no database access."""
+    req = setting.request
+    recipe, X_pre = preprocessed(setting, pool)
     n_components = (setting.space_model.n_components if req.n_components == "model"
                     else req.n_components)
     space = SelectionSpace(explained_variance=req.explained_variance,
@@ -543,31 +609,62 @@ def choose_picks(setting: SelectionSetting, pool: CandidatePool, space: ScoreSpa
     method = method or setting.request.method
     k = pick_count(setting, pool.size, method=method) if k is None else k
     tick = (lambda done: progress("selecting", done, k)) if progress else None
+    values = {}
+    if method in NEEDS_VALUES:
+        if setting.space_model is None or pool.y_reference is None:
+            raise InputError(f"{method} needs a current model of "
+                             f"{'/'.join(setting.request.property_codes)} on grade "
+                             f"{setting.grade.code} (its reference values and predictions)",
+                             field="--method")
+        predicted = pool.diagnostics[setting.space_code]
+        values = {"y_cal": pool.y_reference,
+                  "y_pool": np.array([predicted[i]["y_pred"] for i in pool.rows], dtype=np.float64)}
     return rank_pool(space.T_reference, space.T_pool, k, method, eigenvalues=space.eigenvalues,
-                     random_state=int(pool.sha256[:8], 16), progress=tick)
+                     random_state=int(pool.sha256[:8], 16), progress=tick, **values)
+
+
+def outside_share(setting: SelectionSetting, pool: CandidatePool) -> float:
+    """Share of the untested candidates that fail a space check of the space model (0 without)."""
+    if setting.space_model is None or not pool.universe:
+        return 0.0
+    records = pool.diagnostics[setting.space_code]
+    return float(np.mean([any(f in SPACE_FLAGS for f in rec["flags"]) for rec in records]))
+
+
+def recommend_for(setting: SelectionSetting, pool: CandidatePool) -> Recommendation:
+    """The method the measured evidence supports for this run's situation, as a method of
+    :data:`METHODS` (the library's ``ks-augment`` is this service's ``kennard-stone``:
+    Kennard–Stone augmenting the calibration reference in the PCA space of reference +
+    candidates)."""
+    rec = recommend_method(outside_share(setting, pool), len(pool.reference_ids),
+                           references_known=pool.y_reference is not None)
+    return Recommendation(_SERVICE_METHOD[rec.method], rec.reason, rec.scenario, rec.evidence)
 
 
 # --------------------------------------------------------------------------- 6. explaining
 def _flag_words(prop_code: str, record: dict) -> str:
     parts = []
     for flag in record["flags"]:
-        if flag in _FLAG_WORDS:
-            words, value, limit = _FLAG_WORDS[flag]
+        words, value, limit = CHECK_WORDS.get(flag, (None, None, None))
+        if limit is not None:  # the space checks; the prediction range is reported apart
             parts.append(f"{words} {record[value]:.3g} > limit {record[limit]:.3g}")
     return f"outside the {prop_code} model's space ({'; '.join(parts)})" if parts else ""
 
 
-def _reason(method: str, use: str, rank: int, dist: float, nearest: str, lev: float, gain: float,
+def _reason(method: str, use: str, rank: int, dist: float, nearest: str, gain: float,
             metric: str, flags_text: str, has_reference: bool) -> str:
     what = "Mahalanobis distance" if metric == "mahalanobis" else "distance"
     near = f"{what} {dist:.3g} to the nearest {nearest}" if nearest else ""
-    if method == "kennard-stone":
+    if method == "spxy":
+        text = (f"largest remaining joint gap in spectra and predicted value: {near}"
+                if near else "one of the two most different samples in spectra and value")
+    elif method == "kennard-stone":
         # without a calibration the first two picks are the most distant pair of the pool
         text = (f"largest remaining gap in the calibration space: {near}"
                 if has_reference or rank > 2 else
                 "one of the two most different samples of the pool" + (f" ({near})" if near else ""))
     elif method == "d-optimal":
-        text = (f"raises ln det(Z'Z) by {gain:.3g} (leverage {lev:.3g})" if math.isfinite(gain)
+        text = (f"raises ln det(Z'Z) by {gain:.3g}" if math.isfinite(gain)
                 else "needed with the other picks to make the design estimable")
         text += f"; {near}" if near else ""
     else:
@@ -592,7 +689,11 @@ def _nearest_words(picks: Picks, r: int, cal_row: int, rank: int, pool: Candidat
 def explain_picks(setting: SelectionSetting, pool: CandidatePool, space: ScoreSpace,
                   picks: Picks) -> list[dict[str, Any]]:
     """The send list: one row per pick in rank order (:data:`SEND_LIST_COLUMNS`, plus
-    ``sample_pk`` and each current model's ``diagnostics``), with a reason in words."""
+    ``sample_pk`` and each current model's ``diagnostics``), with a reason in words.
+
+    One leverage per row: the space model's own prediction-time leverage (the figure its
+    leverage check and the reason's flag text use), else, without a model, the leverage
+    in the selection space."""
     req = setting.request
     rationale = pick_rationale(space.T_reference, space.T_pool, picks.rows,
                                eigenvalues=space.eigenvalues)
@@ -607,14 +708,17 @@ def explain_picks(setting: SelectionSetting, pool: CandidatePool, space: ScoreSp
         dist = float(nearest.distance[r])
         near = _nearest_words(picks, r, int(nearest.calibration_row[r]), int(nearest.pick_rank[r]),
                               pool)
-        lev, gain = float(rationale.leverage[r]), float(rationale.log_det_gain[r])
+        gain = float(rationale.log_det_gain[r])
+        lev = float(records[setting.space_code]["leverage"] if setting.space_code in records
+                    else rationale.leverage[r])
         spent += cost
         s = pool.samples[sid]
         rows.append({
             "rank": r + 1, "sample_id": s.external_id, "sample_pk": sid, "batch": s.batch,
             "source": s.source or f"file {pool.spectra[sid][0].source_file}", "use": picks.use[r],
             "tests": setting.tests_text, "cost": cost, "cumulative_cost": spent,
-            "reason": _reason(picks.method, picks.use[r], r + 1, dist, near, lev, gain, req.metric,
+            "currency": setting.currency,
+            "reason": _reason(picks.method, picks.use[r], r + 1, dist, near, gain, req.metric,
                               "; ".join(flag_texts), has_reference),
             "distance": dist, "nearest_sample": near, "leverage": lev, "log_det_gain": gain,
             "flags": sorted({f for rec in records.values() for f in rec["flags"] if f in SPACE_FLAGS}),
@@ -712,6 +816,9 @@ def selection_parameters(setting: SelectionSetting, pool: CandidatePool, space: 
                   "explained": float(space.space.explained_variance_ratio_.sum()),
                   "fitted_on": "calibration reference + untested candidates"},
         "model_version": setting.space_model.label if setting.space_model else None,
+        "space_property": setting.space_code,
+        "leverage": (f"prediction-time leverage of model {setting.space_model.label}"
+                     if setting.space_model else "leverage in the selection space"),
         "models": {c: mv.label for c, mv in setting.models.items() if mv is not None},
         "reference_set": pool.reference_text, "n_reference": len(pool.reference_ids),
         "reference_sha256": pool.reference_sha256, "n_untested": len(pool.universe),
@@ -729,7 +836,11 @@ class SelectionResult:
 
     ``rows`` are the send-list rows in rank order (see :data:`SEND_LIST_COLUMNS`).
     ``scores_calibration``/``scores_pool`` and ``eigenvalues`` are the space the
-    method ran on (rows of the pool in ``pool_sample_ids`` order).
+    method ran on (rows of the pool in ``pool_sample_ids`` order); ``calibration_limit``
+    the calibration reference's Hotelling T² ellipse in scores 1 and 2
+    (:func:`registry.selection.picking.t2_ellipse`, at :data:`MAP_LIMIT_CONFIDENCE`).
+    ``recommendation`` is the method proposed for the situation (``method``, ``reason``,
+    ``evidence``, ``outside_share``) and whether the run ``followed`` it.
     """
 
     run: SelectionRun | None
@@ -747,6 +858,8 @@ class SelectionResult:
     scores_calibration: np.ndarray | None = None
     scores_pool: np.ndarray | None = None
     eigenvalues: np.ndarray | None = None
+    recommendation: dict[str, Any] | None = None
+    calibration_limit: np.ndarray | None = None
 
     @property
     def picked_sample_ids(self) -> list[int]:
@@ -763,12 +876,15 @@ class SelectionResult:
                 "pool_sha256": self.pool_sha256, "tests": self.tests,
                 "cost_per_sample": self.cost_per_sample, "currency": self.currency,
                 "total_cost": self.total_cost, "benefit": self.benefit,
+                "recommendation": self.recommendation,
                 "picks": [{k: v for k, v in r.items() if k != "sample_pk"} for r in self.rows]}
 
 
 def selection_result(session: Session, setting: SelectionSetting, pool: CandidatePool,
-                     space: ScoreSpace, picks: Picks) -> SelectionResult:
+                     space: ScoreSpace, picks: Picks,
+                     recommendation: Recommendation | None = None) -> SelectionResult:
     """Reasons, benefit and parameters of ``picks`` as one (unstored) result."""
+    rec = recommendation or recommend_for(setting, pool)
     return SelectionResult(
         run=None, parameters=selection_parameters(setting, pool, space, picks),
         rows=explain_picks(setting, pool, space, picks),
@@ -778,7 +894,12 @@ def selection_result(session: Session, setting: SelectionSetting, pool: Candidat
         model_label=setting.space_model.label if setting.space_model else None,
         pool_sample_ids=pool.ids, calibration_sample_ids=list(pool.reference_ids),
         scores_calibration=space.T_reference, scores_pool=space.T_pool,
-        eigenvalues=space.space.eigenvalues_)
+        eigenvalues=space.space.eigenvalues_,
+        recommendation={"method": rec.method, "reason": rec.reason, "evidence": rec.evidence,
+                        "outside_share": outside_share(setting, pool),
+                        "followed": rec.method == picks.method},
+        calibration_limit=(t2_ellipse(space.T_reference[:, :2], MAP_LIMIT_CONFIDENCE)
+                           if space.T_reference.shape[1] >= 2 else None))
 
 
 # --------------------------------------------------------------------------- 7. storing
@@ -813,11 +934,12 @@ def store_run(session: Session, actor: Actor, result: SelectionResult,
 
 # --------------------------------------------------------------------------- the action
 def run_selection(session: Session, actor: Actor, *, property_codes: list[str], grade: str,
-                  method: str, n: int | None = None, budget: float | None = None,
-                  pool: str = "unreferenced", since: datetime | None = None,
+                  method: str | None = None, n: int | None = None,
+                  budget: float | None = None, pool: str = "unreferenced", since: datetime | None = None,
                   until: datetime | None = None, site: str | None = None,
                   recipe: list[dict] | None = None, explained_variance: float = 0.99,
                   n_components: int | str | None = None, metric: str = "mahalanobis",
+                  space_property: str | None = None,
                   progress: Progress | None = None, store: bool = True,
                   ignore_run_id: int | None = None) -> SelectionResult:
     """Choose samples to send for reference testing and store the run.
@@ -829,7 +951,8 @@ def run_selection(session: Session, actor: Actor, *, property_codes: list[str], 
         one method serving several properties is charged once).
     grade : str
         Grade code; only samples of this grade are candidates.
-    method : {"kennard-stone", "d-optimal", "duplex"}
+    method : {"kennard-stone", "d-optimal", "duplex", "spxy"}, optional
+        None: the method :func:`recommend_for` proposes for the situation.
     n, budget
         Exactly one: pick ``n`` samples, or as many (in rank order) as ``budget`` buys.
     pool : {"unreferenced", "outside-coverage"}
@@ -846,6 +969,8 @@ def run_selection(session: Session, actor: Actor, *, property_codes: list[str], 
         A fixed component count, or ``"model"`` for the current model's own count.
     metric : {"mahalanobis", "euclidean"}
         Distances on the scores: Mahalanobis H² = Σₐ Δtₐ²/λₐ (ASTM E1655, from memory) or Euclidean.
+    space_property : str, optional
+        The property whose current model gives the space (default: the costliest test's).
     progress : callable, optional
         ``progress(stage, done, total)`` while loading spectra and picking.
     store : bool
@@ -861,9 +986,17 @@ def run_selection(session: Session, actor: Actor, *, property_codes: list[str], 
     request = check_request(property_codes=property_codes, grade=grade, method=method, n=n,
                             budget=budget, pool=pool, since=since, until=until, site=site,
                             recipe=recipe, explained_variance=explained_variance,
-                            n_components=n_components, metric=metric)
+                            n_components=n_components, metric=metric,
+                            space_property=space_property)
     return run_request(session, actor, request, progress=progress, store=store,
                        ignore_run_id=ignore_run_id)
+
+
+def _request_fields(request: SelectionRequest) -> dict[str, Any]:
+    """``check_request`` arguments that give ``request`` again."""
+    fields = {f: getattr(request, f) for f in SelectionRequest.__dataclass_fields__}
+    fields["property_codes"] = list(fields["property_codes"])
+    return fields
 
 
 def run_request(session: Session, actor: Actor, request: SelectionRequest, *,
@@ -873,9 +1006,14 @@ def run_request(session: Session, actor: Actor, request: SelectionRequest, *,
     authorize(actor, Action.SELECTION_RUN)
     setting = resolve_request(session, request)
     candidates = build_pool(session, setting, ignore_run_id=ignore_run_id, progress=progress)
+    recommendation = recommend_for(setting, candidates)
+    if request.method is None:
+        # the recommended method, checked as if the user had named it
+        setting.request = check_request(**{**_request_fields(request),
+                                           "method": recommendation.method})
     space = build_space(setting, candidates)
     picks = choose_picks(setting, candidates, space, progress=progress)
-    result = selection_result(session, setting, candidates, space, picks)
+    result = selection_result(session, setting, candidates, space, picks, recommendation)
     if store:
         result.run = store_run(session, actor, result, setting)
     return result

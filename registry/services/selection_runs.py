@@ -134,7 +134,8 @@ def replay_selection(session: Session, actor: Actor, run_id: int | str) -> dict[
                         method=p["method"], n=p["n"], budget=p["budget"], pool=p["pool"],
                         since=parse(p["since"]), until=parse(p["until"]), site=p["site"],
                         recipe=p["recipe"], explained_variance=p["explained_variance"],
-                        n_components=p["n_components"], metric=p["metric"], store=False,
+                        n_components=p["n_components"], metric=p["metric"],
+                        space_property=p.get("space_property"), store=False,
                         ignore_run_id=run.id)
     stored = [pk.sample_id for pk in session.exec(select(SelectionPick).where(
         SelectionPick.run_id == run.id).order_by(SelectionPick.rank)).all()]

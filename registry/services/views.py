@@ -12,8 +12,10 @@ from typing import Any
 
 import numpy as np
 from sklearn.decomposition import PCA
+from sqlalchemy import func
 from sqlmodel import Session, select
 
+from ..chemometrics.diagnostics import CHECK_WORDS, FLAG_NAMES
 from ..errors import InputError, NotFoundError
 from ..lifecycle.permissions import Action
 from ..storage.models import (CalibrationMember, CalibrationSet, Grade, Instrument, ModelVersion,
@@ -22,6 +24,7 @@ from ..storage.models import (CalibrationMember, CalibrationSet, Grade, Instrume
 from ..storage.spectra_store import axis_values, load_matrix, load_on_axis
 from ..storage.types import as_utc
 from .admin import get_grade, get_property
+from .calibration import members_of
 from .context import Actor, authorize
 from .models import current_model, get_model, load_trained
 from .predictions import SPACE_FLAGS
@@ -116,18 +119,21 @@ def recent_predictions(session: Session, actor: Actor, *, limit: int = 50) -> li
 
 
 def qc_charts_available(session: Session, actor: Actor) -> list[dict]:
-    """Every (instrument, material, property) with QC results, and how many."""
+    """Every (instrument, material, property, model version) with QC results, and how many:
+    one chart each, as :func:`registry.services.qc.qc_chart` draws it."""
     authorize(actor, Action.VIEW)
     serials = {i.id: i.serial for i in session.exec(select(Instrument)).all()}
     props = {p.id: p.code for p in session.exec(select(Property)).all()}
-    counts: dict[tuple[int, str, int], int] = {}
-    for inst_id, material, prop_id in session.exec(
-            select(QCResult.instrument_id, QCResult.material, QCResult.property_id)).all():
-        key = (inst_id, material, prop_id)
-        counts[key] = counts.get(key, 0) + 1
-    rows = [{"instrument": serials[i], "material": m, "property": props[p], "n": n}
-            for (i, m, p), n in counts.items()]
-    return sorted(rows, key=lambda r: (r["instrument"], r["material"], r["property"]))
+    labels = {m_id: label for m_id, label in session.exec(select(ModelVersion.id, ModelVersion.label))}
+    counts: dict[tuple[int, str, int, int], int] = {}
+    for key in session.exec(select(QCResult.instrument_id, QCResult.material, QCResult.property_id,
+                                   QCResult.model_version_id)).all():
+        counts[tuple(key)] = counts.get(tuple(key), 0) + 1
+    # newest model version first within each instrument, material and property
+    keyed = sorted(counts.items(), key=lambda kv: (serials[kv[0][0]], kv[0][1], props[kv[0][2]],
+                                                   -kv[0][3]))
+    return [{"instrument": serials[i], "material": m, "property": props[p], "model": labels[v],
+             "n": n} for (i, m, p, v), n in keyed]
 
 
 # --------------------------------------------------------------------------- coverage
@@ -159,8 +165,9 @@ def recent_production(session: Session, mv: ModelVersion, trained, grade: Grade,
     for the coverage map and the selection benefit, so both count the same spectra.
 
     Returns ``rows`` ((spectrum id, acquired UTC, sample), ...), ``since``, ``until``,
-    ``X`` (raw spectra on the model axis), ``diagnostics`` (None without rows) and
-    ``outside`` (bool per row: a space check failed, :data:`SPACE_FLAGS`).
+    ``X`` (raw spectra on the model axis), ``X_pre`` (the same through the model's
+    recipe), ``diagnostics`` (None without rows) and ``outside`` (bool per row: a space
+    check failed, :data:`SPACE_FLAGS`).
     """
     cs_ids = {int(s) for m in session.exec(select(CalibrationMember).where(
         CalibrationMember.set_id == mv.calibration_set_id, CalibrationMember.role == "cal")).all()
@@ -174,14 +181,15 @@ def recent_production(session: Session, mv: ModelVersion, trained, grade: Grade,
     rows = [(sid, as_utc(t), ext) for sid, t, ext in grade_rows
             if sid not in cs_ids and as_utc(t) >= since][:MAX_RECENT]
     rows.reverse()  # oldest first, for time plots
-    X, diag, outside = None, None, np.zeros(0, dtype=bool)
+    X, X_pre, diag, outside = None, None, None, np.zeros(0, dtype=bool)
     if rows:
         X = load_on_axis(session, [r[0] for r in rows], trained.axis)
-        _, diag = trained.predict(X)
+        X_pre = trained.preprocessor.transform(X)
+        _, diag = trained.predict_preprocessed(X_pre)
         outside = np.array([any(f in SPACE_FLAGS for f in fl) for fl in diag.flag_lists()],
                            dtype=bool)
-    return {"rows": rows, "since": since, "until": until, "X": X, "diagnostics": diag,
-            "outside": outside}
+    return {"rows": rows, "since": since, "until": until, "X": X, "X_pre": X_pre,
+            "diagnostics": diag, "outside": outside}
 
 
 def coverage_map(session: Session, actor: Actor, property_code: str, grade_code: str, *,
@@ -204,67 +212,118 @@ def coverage_map(session: Session, actor: Actor, property_code: str, grade_code:
         ``calibration`` (``scores`` (n, 2), ``samples``), ``recent``
         (``scores`` (m, 2), ``samples``, ``spectrum_ids``, ``acquired_at``,
         ``outside`` bool (m,), ``flags``), ``counts`` (``calibration, recent,
-        outside, share_outside``) and ``weekly`` (``week_start, n, outside,
-        share``) rows.
+        outside, share_outside``), ``checks`` (per check: ``check, words, limit,
+        failed, makes_outside``; see :func:`_check_counts`) and ``weekly`` (``week_start,
+        n, outside, share``) rows, one per week of the window, ``share`` None for a
+        week without spectra.
     """
     authorize(actor, Action.VIEW)
-    if isinstance(days, bool) or not isinstance(days, int) or days < 1:
-        raise InputError(f"days must be a whole number ≥ 1, got {days!r}", field="days")
+    _check_days(days)
     prop = get_property(session, property_code)
     grade = get_grade(session, grade_code)
     mv = _model_for(session, prop, grade, model)
     trained = load_trained(mv)
-    cs = session.get(CalibrationSet, mv.calibration_set_id)
-    members = session.exec(select(CalibrationMember).where(
-        CalibrationMember.set_id == cs.id, CalibrationMember.role == "cal")
-        .order_by(CalibrationMember.id)).all()
+    # Members in the order the model was fitted on (calibration_data's), so the
+    # calibration's T² and Q stored in the model line up with the sample labels.
+    members = members_of(session, session.get(CalibrationSet, mv.calibration_set_id), "cal")
     cal_ids = [int(s) for m in members for s in m.spectrum_ids]
     cal_samples = dict(session.exec(select(Sample.id, Sample.external_id).where(
         Sample.id.in_({m.sample_id for m in members}))).all())
     cal_labels = [cal_samples[m.sample_id] for m in members for _ in m.spectrum_ids]
-    X_cal_raw = load_on_axis(session, cal_ids, trained.axis)
-    X_cal = trained.preprocessor.transform(X_cal_raw)
+    X_cal = trained.preprocessor.transform(load_on_axis(session, cal_ids, trained.axis))
     if X_cal.shape[0] < 3:
         raise InputError(f"model {mv.label} has {X_cal.shape[0]} calibration spectra; a map needs 3",
                          field="model")
     pca = PCA(n_components=2).fit(X_cal)
 
     rp = recent_production(session, mv, trained, grade, days)
-    recent, since, until = rp["rows"], rp["since"], rp["until"]
+    recent, since, until, diag = rp["rows"], rp["since"], rp["until"], rp["diagnostics"]
     if recent:
-        X_new, diag = rp["X"], rp["diagnostics"]
         flags = diag.flag_lists()
-        scores_new = pca.transform(trained.preprocessor.transform(X_new))
+        scores_new = pca.transform(rp["X_pre"])
         t2_new, q_new = diag.t2, diag.q
     else:
         flags, scores_new = [], np.empty((0, 2))
         t2_new, q_new = np.empty(0), np.empty(0)
     # Hotelling T² and Q residual of every spectrum against the model's own limits: the
     # view in which a new blend component shows (high Q) even when PC1/PC2 look familiar.
-    _, diag_cal = trained.predict(X_cal_raw)
+    # The calibration's own values were stored with the model when it was fitted.
+    domain = trained.domain
     outside = rp["outside"]
-    weekly: dict[datetime, list[int]] = {}
-    for (_, t, _), out in zip(recent, outside):
-        w = weekly.setdefault(_week_start(t), [0, 0])
-        w[0] += 1
-        w[1] += int(out)
     return {
-        "model": mv.label, "model_state": mv.state, "property": prop.code, "grade": grade.code,
-        "days": days, "since": since, "until": until,
+        "model": mv.label, "model_state": mv.state, "property": prop.code, "unit": prop.unit,
+        "grade": grade.code, "days": days, "since": since, "until": until,
         "explained_variance": pca.explained_variance_ratio_.copy(),
         "calibration": {"scores": pca.transform(X_cal), "samples": cal_labels},
         "recent": {"scores": scores_new, "samples": [r[2] for r in recent],
                    "spectrum_ids": [r[0] for r in recent], "acquired_at": [r[1] for r in recent],
                    "outside": outside, "flags": flags},
-        "residuals": {"t2_limit": float(diag_cal.t2_limit), "q_limit": float(diag_cal.q_limit),
-                      "calibration": {"t2": diag_cal.t2.copy(), "q": diag_cal.q.copy()},
+        "residuals": {"t2_limit": float(domain.t2_limit_), "q_limit": float(domain.q_limit_),
+                      "calibration": {"t2": np.array(domain.calibration_t2_, float),
+                                      "q": np.array(domain.calibration_q_, float)},
                       "recent": {"t2": np.asarray(t2_new, float), "q": np.asarray(q_new, float)}},
         "counts": {"calibration": int(X_cal.shape[0]), "recent": len(recent),
                    "outside": int(outside.sum()),
                    "share_outside": float(outside.mean()) if len(recent) else None},
-        "weekly": [{"week_start": w, "n": n, "outside": k, "share": k / n}
-                   for w, (n, k) in sorted(weekly.items())],
+        "checks": _check_counts(diag, flags),
+        "weekly": _weekly(recent, outside, since, until),
     }
+
+
+def _check_days(days) -> None:
+    if isinstance(days, bool) or not isinstance(days, int) or days < 1:
+        raise InputError(f"days must be a whole number ≥ 1, got {days!r}", field="days")
+
+
+def _check_counts(diag, flags: list[list[str]]) -> list[dict[str, Any]]:
+    """Per prediction-time check: its words, limit, how many recent spectra fail it, and
+    whether failing it puts a spectrum outside the calibration space (the prediction range
+    check does not: a value beyond the calibrated range is flagged but the spectrum itself
+    may be familiar)."""
+    out = []
+    for name in FLAG_NAMES:
+        words, _, limit_key = CHECK_WORDS[name]
+        limit = None
+        if diag is not None:
+            limit = ([diag.y_min, diag.y_max] if limit_key is None
+                     else float(getattr(diag, limit_key)))
+        out.append({"check": name, "words": words, "limit": limit,
+                    "failed": sum(1 for f in flags if name in f),
+                    "makes_outside": name in SPACE_FLAGS})
+    return out
+
+
+def _weekly(recent, outside, since: datetime | None, until: datetime | None) -> list[dict]:
+    """One row per week (Monday 00:00 UTC) of the window, weeks without spectra included
+    with ``n`` 0 and ``share`` None, so a week with no data is not read as 0 % outside."""
+    if since is None:
+        return []
+    weeks: dict[datetime, list[int]] = {}
+    w = _week_start(since)
+    while w <= until:
+        weeks[w] = [0, 0]
+        w += timedelta(days=7)
+    for (_, t, _), out in zip(recent, outside):
+        counts = weeks.setdefault(_week_start(t), [0, 0])
+        counts[0] += 1
+        counts[1] += int(out)
+    return [{"week_start": w, "n": n, "outside": k, "share": k / n if n else None}
+            for w, (n, k) in sorted(weeks.items())]
+
+
+def coverage_stamp(session: Session, actor: Actor, property_code: str, grade_code: str, *,
+                   days: int = 90, model: str | None = None) -> tuple:
+    """What :func:`coverage_map` depends on, cheaply: the model version it would use (label,
+    state) and the grade's newest spectrum (spectra are only ever added). Equal stamps give
+    equal maps, so a page may keep a map until the stamp changes."""
+    authorize(actor, Action.VIEW)
+    _check_days(days)
+    prop = get_property(session, property_code)
+    grade = get_grade(session, grade_code)
+    mv = _model_for(session, prop, grade, model)
+    newest = session.exec(select(func.max(Spectrum.id)).join(Sample, Sample.id == Spectrum.sample_id)
+                          .where(Sample.grade_id == grade.id)).one()
+    return (mv.label, str(mv.state), newest, days)
 
 
 # --------------------------------------------------------------------------- trace

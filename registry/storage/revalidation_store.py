@@ -18,7 +18,7 @@ from ..lifecycle.revalidation_rules import (DEFAULT_INTERVAL_DAYS, SERVICE_EVENT
 from ..lifecycle.states import DeploymentState
 from .models import (Deployment, Instrument, InstrumentEvent, ModelVersion, RevalidationPolicy,
                      RevalidationTrigger)
-from .types import utcnow
+from .types import as_utc, utcnow
 
 
 def policy_for(session: Session, mv: ModelVersion) -> RevalidationPolicy:
@@ -50,7 +50,8 @@ def _describe(t: RevalidationTrigger) -> str:
 def due_status_of(session: Session, mv: ModelVersion, now: datetime | None = None) -> DueStatus | None:
     """:func:`~registry.lifecycle.revalidation_rules.model_due_status` of a stored version
     (None for versions not in service)."""
-    triggers = [Trigger(t.kind, _describe(t)) for t in open_triggers(session, mv)]
+    triggers = [Trigger(t.kind, _describe(t), as_utc(t.raised_at))
+                for t in open_triggers(session, mv)]
     return model_due_status(mv.state, mv.last_validated_at, policy_for(session, mv).interval_days,
                             triggers, now or utcnow())
 

@@ -83,7 +83,7 @@ def main() -> int:
                 realised = rmsep(y[test], model.predict(X[test]))
                 hits.setdefault((method, prop), []).append(row["low"] <= realised <= row["high"])
             if example is None:
-                example = (prop, PRECISIONS[prop].method, fc.as_dict())
+                example = (prop, PRECISIONS[prop]["code"], fc.as_dict())
     all_hits = [h for v in hits.values() for h in v]
     print(f"{N_HISTORIES} generated histories x {len(STEPS)} budgets = {len(all_hits)} "
           f"forecasts; 80 % bands")

@@ -274,3 +274,27 @@ def test_model_list_json_names_every_family(demo):
     families = {r["label"]: r["family"] for r in json.loads(res.stdout)}
     assert set(families.values()) == {"pls", "band", "cls", "derived", "neighbours"}
     assert families["AKI-PREM95-v1"] == "derived" and families["T50-B7-v1"] == "neighbours"
+
+
+def test_forecast_backtest_and_plan_on_the_demo_history(demo):
+    """The forecast made before the demo's send list was answered, against the RMSECV once
+    its engine results came in (issue 14's honesty check on the demo history)."""
+    from registry.services import planning
+    from registry.services.selection_runs import list_runs
+
+    engine, _ = demo
+    with session_scope(engine) as s:
+        mgr = actor_of(s.exec(select(User).where(User.name == "imara")).one())
+        answered = [r for r in list_runs(s, mgr) if r["answered_picks"]]
+        assert answered
+        back = planning.forecast_backtest(s, mgr, answered[0]["id"])
+        plan = planning.plan_testing(s, mgr, planning.check_plan(
+            property_code="RON", grade="PREM95", budget=5000))
+    assert back["added"] == answered[0]["answered_picks"] and back["n_before"] > back["added"]
+    f = back["forecast"]
+    assert f["low"] <= f["rmsep"] <= f["high"]
+    print(f"demo backtest: forecast {f['rmsep']:.4f} ({f['low']:.4f}-{f['high']:.4f}), "
+          f"realised RMSECV {back['rmsecv_after']:.4f}, inside band: {back['inside_band']}")
+    # the plan on the demo: the floor holds the reference test's repeatability (ISO 5725-6)
+    assert plan["floor"]["rmsep"] >= plan["precision"]["sigma_r"]
+    assert plan["budget"]["tests"] == int(5000 // plan["cost_per_test"])

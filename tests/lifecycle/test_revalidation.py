@@ -106,6 +106,21 @@ def test_trigger_detail_and_earlier_schedule_are_kept():
     assert status.reasons[1] == "open trigger: qc_signal (rule 1 on RON check fuel)"
 
 
+def test_overdue_since_counts_from_the_earliest_cause():
+    # Arithmetic on the dates themselves (no outside source needed): an overdue version is
+    # late since its passed schedule or since its earliest open trigger was raised.
+    raised = DUE - timedelta(days=12)
+    now = DUE - timedelta(days=2)
+    status = due_status(now, DUE, [Trigger(TriggerKind.QC_SIGNAL, "", raised),
+                                   Trigger(TriggerKind.METHOD_CHANGE, "", raised + timedelta(days=5))])
+    assert status.overdue and status.overdue_since == raised and status.scheduled_at == DUE
+    late = due_status(DUE + timedelta(days=4), DUE, [Trigger(TriggerKind.QC_SIGNAL, "",
+                                                             DUE + timedelta(days=1))])
+    assert late.overdue_since == DUE  # the schedule passed before the trigger came
+    assert due_status(now, DUE, [TriggerKind.QC_SIGNAL]).overdue_since == now  # time unknown
+    assert due_status(now, DUE).overdue_since is None  # not overdue
+
+
 def test_unknown_trigger_is_refused():
     with pytest.raises(InputError) as info:
         due_status(DUE, DUE, ["sunspots"])

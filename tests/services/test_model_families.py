@@ -313,7 +313,7 @@ def test_selection_and_coverage_refuse_a_property_whose_current_model_is_not_pls
         with pytest.raises(InputError) as err:
             selection.run_selection(s, actors["lab_manager"], property_codes=["BENZENE"],
                                     grade="PREM95", method="kennard-stone", n=5, store=False)
-    for needed in ("BENZENE", "PREM95", label, "band", "PLS", "--family pls"):
+    for needed in ("BENZENE", "PREM95", label, "band", "Train a PLS version"):
         assert needed in str(err.value), needed
     with session_scope(engine) as s:
         with pytest.raises(InputError, match=r"BENZENE on PREM95 is .* a band model"):

@@ -105,8 +105,8 @@ def test_coverage_page_plots_calibration_and_recent_points(ui_reg):
     n_in, n_out = (array(by_name[k]["x"]).size for k in ("recent, inside", "recent, outside"))
     assert (n_in + n_out, n_out) == (cov["counts"]["recent"], cov["counts"]["outside"])
     assert n_in > 0 and cov["counts"]["calibration"] > 0
-    # weekly shares are outside/n of each week, drawn in percent
-    shares = [100 * w["outside"] / w["n"] for w in cov["weekly"]]
+    # weekly shares are outside/n of each week with spectra, drawn in percent
+    shares = [100 * w["outside"] / w["n"] for w in cov["weekly"] if w["n"]]
     np.testing.assert_allclose(array(weekly["data"][0]["y"]), shares)
     # the T²/Q view carries the same spectra, with the model's limits drawn as lines
     res = {t["name"]: t for t in residuals["data"]}
@@ -168,9 +168,9 @@ def test_qc_page_draws_three_charts_with_limits_from_the_moving_range(ui_reg):
 
 def test_due_page_lists_the_model_in_service(ui_reg):
     at = open_page(signed_in("auditor"), "due")
-    table = frame(at, "days left")
+    table = frame(at, "status")
     assert table["model"].tolist() == [ui_reg.label]
-    assert not table["overdue"].iloc[0]
+    assert table["status"].iloc[0].startswith("due in ")
 
 
 def test_trace_page_shows_the_trace_and_offers_the_html(ui_reg):

@@ -169,6 +169,8 @@ def test_auditor_downloads_a_trace_and_pages_switch_quickly(served):
     assert browser.problems_on(page) == []
     shot(page, "auditor-trace", page.locator(".trace-tree"))
 
+    # training is the analyst's: the auditor's navigation does not offer it
+    assert page.get_by_test_id("stSidebarNav").get_by_role("link", name="Train", exact=True).count() == 0
     times = browser.page_switch_times(page, rounds=2)
     assert browser.problems_on(page) == []
     assert browser.toolbar_items(page) == {"deploy": 0, "menu": 0}
@@ -202,4 +204,7 @@ def test_analyst_imports_a_file_and_sees_the_spectra(served):
     assert browser.problems_on(page) == []
     shot(page, "analyst-import", plot)
     assert len(service(served, intake.spectra_of_samples, ids, role="analyst")) == 3
+    # the analyst's navigation offers training, and the page opens without a problem
+    browser.switch(page, "Train", titles["Train"])
+    assert browser.problems_on(page) == []
     context.close()

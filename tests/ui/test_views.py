@@ -109,7 +109,8 @@ def test_every_role_may_view_and_viewing_writes_nothing(ui_reg, session_of, role
         assert s.exec(select(func.count()).select_from(AuditEvent)).one() == before
     assert "IR-100" in [i["serial"] for i in cat["instruments"]]
     assert "PREM95" in [g["code"] for g in cat["grades"]]
-    assert charts == [{"instrument": "IR-100", "material": "CHECK-95", "property": "RON", "n": 20}]
+    assert charts == [{"instrument": "IR-100", "material": "CHECK-95", "property": "RON",
+                       "model": ui_reg.label, "n": 20}]
 
 
 def test_nobody_signed_in_is_refused(ui_reg, session_of):

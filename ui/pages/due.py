@@ -1,12 +1,13 @@
-"""Due: model versions in service by revalidation due date, overdue first."""
+"""Due: model versions in service by revalidation due date, overdue first, and a timeline."""
 
 from __future__ import annotations
 
-import pandas as pd
 import streamlit as st
 
+from registry.clock import now
 from registry.services import revalidation
-from ui.common import FAILED, call, require_actor, when
+from ui.common import FAILED, call, require_actor
+from ui.due_view import due_frame, due_timeline
 
 require_actor()
 st.title("Revalidation due")
@@ -20,13 +21,12 @@ if rows is not FAILED:
     else:
         overdue = sum(1 for r in rows if r["overdue"])
         if overdue:
-            st.warning(f"{overdue} model version(s) overdue: their predictions carry the overdue flag.")
-        rows = sorted(rows, key=lambda r: (not r["overdue"], r["due_at"]))
-        st.dataframe(pd.DataFrame([{
-            "model": r["label"], "property": r["property"], "grade": r["grade"], "state": r["state"],
-            "overdue": r["overdue"], "days left": r["days_left"], "due (UTC)": when(r["due_at"]),
-            "due (site time)": "; ".join(f"{d['site']}: {d['due_at_local']:%Y-%m-%d %H:%M} "
-                                         f"({d['timezone']})" for d in r["due_at_local"]),
-            "reasons": "; ".join(r["reasons"]), "last validated": when(r["last_validated_at"]),
-            "interval (days)": r["interval_days"]} for r in rows]),
-            hide_index=True, key="due_table")
+            st.warning(f"{overdue} model version(s) overdue: their predictions carry the overdue "
+                       "flag. Confirm results a decision depends on by the specification test "
+                       "method.")
+        st.dataframe(due_frame(rows, local=True), hide_index=True, key="due_table")
+        st.markdown("**Timeline of due dates**")
+        st.plotly_chart(due_timeline(rows, now()), key="due_timeline")
+        st.caption("Grey: from the last passing validation to the scheduled date (diamond); "
+                   "brick red: overdue, from the scheduled date or the open trigger that made "
+                   "it due, until today (dotted line).")
