@@ -86,6 +86,27 @@ def trained_ron_version(engine, actors, *, author: str = "analyst", set_name: st
         return models.train_model_version(s, actors[author], set_name, max_components=5).label
 
 
+def into_service(engine, actors, label: str, *, instrument: str = "IR-100",
+                 reason: str = "into service") -> None:
+    """validate → submit → approve → activate, each by the role the rules ask for and each
+    its own transaction."""
+    from registry.services import lifecycle
+
+    from tests.conftest import PASSWORD
+
+    with session_scope(engine) as s:
+        rec = models.validate_model(s, actors["reviewer"], label)
+        assert rec.passed, (label, rec.reasons)
+    with session_scope(engine) as s:
+        lifecycle.submit_model(s, actors["analyst"], label, "ready for review")
+    with session_scope(engine) as s:
+        lifecycle.approve_model(s, actors["reviewer"], label, password=PASSWORD,
+                                reason="meets criteria")
+    with session_scope(engine) as s:
+        lifecycle.activate_model(s, actors["lab_manager"], label, instrument=instrument,
+                                 password=PASSWORD, reason=reason)
+
+
 def copy_sqlite(src: Path, dst: Path) -> None:
     """Copy an SQLite registry consistently (the backup API includes WAL content)."""
     with sqlite3.connect(src) as a, sqlite3.connect(dst) as b:

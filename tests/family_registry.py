@@ -23,14 +23,14 @@ from pathlib import Path
 import numpy as np
 
 from registry.chemometrics.family_names import ModelFamily
-from registry.services import (admin, calibration, intake, lifecycle, models, predictions,
+from registry.services import (admin, calibration, intake, models, predictions,
                                references)
 from registry.storage.engine import make_engine, session_scope, upgrade
 from registry.storage.models import Sample
 from seed_demo.scenario import ANALYZERS
 from seed_demo.synthetic import generate_population, reference_noise
-from tests.conftest import PASSWORD, populate_basics
-from tests.factories import write_population_csv, write_reference_csv
+from tests.conftest import populate_basics
+from tests.factories import into_service, write_population_csv, write_reference_csv
 
 #: Tested premium samples: a quarter held out leaves 40 validation samples, enough for the
 #: size rule n ≥ max(20, 4·A) up to A = 10 PLS components.
@@ -136,20 +136,6 @@ def train(engine, actors, calset, family, options=None, **kw) -> str:
     with session_scope(engine) as s:
         return models.train_model_version(s, actors["analyst"], calset, family=family,
                                           options=options, **kw).label
-
-
-def into_service(engine, actors, label) -> None:
-    """validate → submit → approve → activate, each by the role the rules ask for."""
-    with session_scope(engine) as s:
-        rec = models.validate_model(s, actors["reviewer"], label)
-        assert rec.passed, (label, rec.reasons)
-    with session_scope(engine) as s:
-        lifecycle.submit_model(s, actors["analyst"], label, "ready")
-    with session_scope(engine) as s:
-        lifecycle.approve_model(s, actors["reviewer"], label, password=PASSWORD, reason="ok")
-    with session_scope(engine) as s:
-        lifecycle.activate_model(s, actors["lab_manager"], label, instrument="IR-100",
-                                 password=PASSWORD, reason="into service")
 
 
 def build_every_family(root: Path) -> FamilyRegistry:

@@ -16,11 +16,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from registry.services import lifecycle, models, predictions, qc
+from registry.services import predictions, qc
 from registry.storage.engine import dispose_engines, make_engine, session_scope, upgrade
 from tests.conftest import PASSWORD, ROLE_USERS, populate_basics
-from tests.factories import (accept_small_test_models, copy_sqlite, referenced_registry,
-                             trained_ron_version)
+from tests.factories import (accept_small_test_models, copy_sqlite, into_service,
+                             referenced_registry, trained_ron_version)
 
 N_REFERENCED = 80
 N_UNREFERENCED = 40
@@ -46,15 +46,7 @@ def _build(base: Path) -> dict:
     info = referenced_registry(engine, actors, base, n=N_REFERENCED, n_unreferenced=N_UNREFERENCED)
     accept_small_test_models(engine, actors)
     label = trained_ron_version(engine, actors)
-    with session_scope(engine) as s:
-        assert models.validate_model(s, actors["reviewer"], label).passed
-    with session_scope(engine) as s:
-        lifecycle.submit_model(s, actors["analyst"], label, "ready for review")
-    with session_scope(engine) as s:
-        lifecycle.approve_model(s, actors["reviewer"], label, password=PASSWORD, reason="meets criteria")
-    with session_scope(engine) as s:
-        lifecycle.activate_model(s, actors["lab_manager"], label, instrument="IR-100",
-                                 password=PASSWORD, reason="into service")
+    into_service(engine, actors, label)
     ids = list(range(N_REFERENCED + 1, N_REFERENCED + N_UNREFERENCED + 1))
     with session_scope(engine) as s:
         batch = predictions.predict(s, actors["analyst"], label, spectrum_ids=ids)

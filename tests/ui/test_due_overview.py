@@ -15,7 +15,7 @@ from registry.services import lifecycle, models, revalidation
 from registry.services.status import registry_status
 from registry.storage.engine import make_engine, session_scope
 from tests.conftest import PASSWORD
-from tests.factories import trained_ron_version
+from tests.factories import into_service, trained_ron_version
 from tests.ui.helpers import frame, open_page, plotly_specs, signed_in
 
 
@@ -36,15 +36,7 @@ def test_active_deployments_leave_out_the_superseded_one(ui_reg):
     engine = make_engine(ui_reg.url)
     a = ui_reg.actors
     v2 = trained_ron_version(engine, a, new_set=False)
-    with session_scope(engine) as s:
-        assert models.validate_model(s, a["reviewer"], v2).passed
-    with session_scope(engine) as s:
-        lifecycle.submit_model(s, a["analyst"], v2, "second version")
-    with session_scope(engine) as s:
-        lifecycle.approve_model(s, a["reviewer"], v2, password=PASSWORD, reason="meets criteria")
-    with session_scope(engine) as s:
-        lifecycle.activate_model(s, a["lab_manager"], v2, instrument="IR-100", password=PASSWORD,
-                                 reason="replaces v1")
+    into_service(engine, a, v2, reason="replaces v1")
     with session_scope(engine) as s:
         status = registry_status(s, ui_reg.url)
         assert models.model_detail(s, a["auditor"], ui_reg.label)["state"] == "superseded"
