@@ -175,10 +175,10 @@ def _version(at, label):
 def test_page_shows_the_queue_as_links_and_the_evidence_of_a_version(rev):
     at = open_page(signed_in("reviewer"), "models")
     assert not at.exception and not at.error, [e.value for e in at.error]
-    shown = texts(at)
-    assert f"[{rev.v2}](models?version={rev.v2}): waiting for approval" in shown
-    assert f"[{rev.v3}](models?version={rev.v3}): waiting for validation" in shown
-    assert shown.index(rev.v2) < shown.index(f"[{rev.v3}]")  # oldest wait first
+    links = [(e.proto.label, e.proto.query_string) for e in at.get("page_link")]
+    assert [q for _, q in links] == [f"version={rev.v2}", f"version={rev.v3}"]  # oldest first
+    assert links[0][0].startswith(f"{rev.v2}: waiting for approval")
+    assert links[1][0].startswith(f"{rev.v3}: waiting for validation")
     at = _version(at, rev.v1)
     ev = call(rev, review.model_evidence, rev.v1)
     specs = plotly_specs(at)
@@ -219,3 +219,16 @@ def test_page_compares_two_versions_and_warns_of_a_reused_set(rev):
     assert f"(removed, 5): {', '.join(rev.removed)}" in texts(at)
     at = _version(at, rev.v3)
     assert any("RON-A" in w.value and rev.v1 in w.value for w in at.warning)
+
+
+def test_a_link_naming_a_version_selects_it_once_then_the_choice_is_the_users(rev):
+    """The queue's links carry ``?version=``: the page opens on that version, and a later
+    choice in the selector is not overridden by the link's parameter."""
+    at = signed_in("reviewer")
+    at.query_params["version"] = rev.v1
+    at = open_page(at, "models")
+    assert at.selectbox(key="models_label").value == rev.v1
+    assert any(s.value.startswith(f"{rev.v1}:") for s in at.subheader)
+    at = _version(at, rev.v2)
+    assert at.selectbox(key="models_label").value == rev.v2
+    assert any(s.value.startswith(f"{rev.v2}:") for s in at.subheader)

@@ -25,12 +25,12 @@ show_flash()
 queue = call(review.review_queue)
 if queue is not FAILED:
     st.subheader("Review queue")
-    if queue:
-        st.markdown("\n".join(
-            f"- [{q['label']}](models?version={q['label']}): waiting for {q['waiting_for']} since "
-            f"{when(q['since'])} ({q['property']}, {q['grade'] or 'all grades'}; author "
-            f"{q['author']})" for q in queue))
-    else:
+    # the same page links the Train page uses; the version is in the query string
+    for q in queue:
+        st.page_link("pages/models.py", query_params={"version": q["label"]},
+                     label=f"{q['label']}: waiting for {q['waiting_for']} since {when(q['since'])} "
+                           f"({q['property']}, {q['grade'] or 'all grades'}; author {q['author']})")
+    if not queue:
         st.write("No version waits for validation or approval.")
 
 rows = call(model_svc.list_models)
@@ -48,9 +48,12 @@ st.dataframe(pd.DataFrame([{
 
 labels = [r["label"] for r in rows]
 asked = st.query_params.get("version")
-label = st.selectbox("Version", labels,
-                     index=labels.index(asked) if asked in labels else len(labels) - 1,
-                     key="models_label")
+if asked in labels and st.session_state.get("models_asked") != asked:
+    # a link that names a version (review queue, Train page) selects it once; the choice
+    # stays the user's afterwards
+    st.session_state["models_label"] = asked
+    st.session_state["models_asked"] = asked
+label = st.selectbox("Version", labels, index=len(labels) - 1, key="models_label")
 d = call(model_svc.model_detail, label)
 if d is FAILED:
     st.stop()
