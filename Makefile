@@ -26,8 +26,10 @@ TEST_ENV := OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 MKL_NUM_THREADS=1
 test: $(STAMP)
 	$(TEST_ENV) $(BIN)/python -m pytest -q -p no:cacheprovider
 
+# Two workers: every test builds its own registry (PostgreSQL databases get unique names),
+# so the fast lane splits across the two cores; the full suite stays one process.
 check: $(STAMP)
-	$(TEST_ENV) $(BIN)/python -m pytest -q -p no:cacheprovider -m "not slow"
+	$(TEST_ENV) $(BIN)/python -m pytest -q -p no:cacheprovider -m "not slow" -n 2
 
 bench: $(STAMP)
 	$(TEST_ENV) $(BIN)/python tests/benchmarks/run_all.py
