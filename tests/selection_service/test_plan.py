@@ -8,30 +8,19 @@ import json
 import numpy as np
 import pytest
 from sqlmodel import select
-from typer.testing import CliRunner
 
 from registry import catalog
-from registry.cli import app
 from registry.errors import InputError
 from registry.precision import LIMIT_FACTOR
 from registry.services import planning, references
 from registry.services import selection as svc
-from registry.storage.engine import dispose_engines, session_scope
+from registry.storage.engine import session_scope
 from registry.storage.models import CalibrationMember
-from tests.conftest import PASSWORD
 from tests.selection_service.conftest import write_results
+from tests.selection_service.test_cli_select import cli
 from tests.selection_service.test_selection_with_model import _set_state, with_model  # noqa: F401
 
-runner = CliRunner()
 RON = catalog.method_of("RON")  # the seeded RON method: cost, r and R (ASTM D2699, catalog)
-
-
-def cli(args, url, user="lena"):
-    try:
-        return runner.invoke(app, [*args, "--db", url, "--as", user],
-                             env={"SPECLEDGER_PASSWORD": PASSWORD})
-    finally:
-        dispose_engines()
 
 
 def _sigma(spec_key: str, level: float) -> float:
