@@ -33,8 +33,9 @@ from .context import Actor, audit, authorize
 
 # Default recipe: drop the atmospheric CO₂ band (a common-practice exclusion in mid-IR work),
 # then a first-derivative Savitzky–Golay filter to remove baseline offsets.
+CO2_BAND_CM1 = [2400, 2250]
 DEFAULT_RECIPE: list[dict[str, Any]] = [
-    {"step": "region", "exclude": [[2400, 2250]]},
+    {"step": "region", "exclude": [CO2_BAND_CM1]},
     {"step": "savgol", "window_length": 11, "polyorder": 2, "deriv": 1},
 ]
 

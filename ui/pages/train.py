@@ -46,8 +46,6 @@ if not sets:
 FOLD_WORDS = {"venetian": "venetian blinds over the samples", "kfold": "contiguous blocks",
               "loso": "leave one sample out", "random": "random (seeded)"}
 RULE_WORDS = {"haaland-thomas": "Haaland–Thomas F-test", "one-se": "one standard error"}
-#: The mid-IR atmospheric CO₂ band, commonly excluded (as in the registry's default recipe).
-CO2_BAND = [2400, 2250]
 
 
 def set_label(s: dict) -> str:
@@ -60,7 +58,7 @@ def recipe_steps(exclude_co2: bool, scatter: str, deriv: str, window: int, polyo
     """The recipe as the service takes it: a list of steps, applied in order."""
     steps: list[dict] = []
     if exclude_co2:
-        steps.append({"step": "region", "exclude": [CO2_BAND]})
+        steps.append({"step": "region", "exclude": [model_svc.CO2_BAND_CM1]})
     if baseline == "linear":
         steps.append({"step": "baseline", "kind": "linear"})
     elif baseline == "polynomial":
